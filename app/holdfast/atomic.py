@@ -1,0 +1,50 @@
+"""Atomic file writes: write to a temporary file in the same folder, fsync, then rename into place."""
+
+from __future__ import annotations
+
+import os
+import tempfile
+from collections.abc import Callable
+from pathlib import Path
+
+import pandas as pd
+
+from holdfast.errors import UserError
+
+
+def atomic_write(path: str | Path, writer: Callable[[Path], None], *, force: bool = True) -> Path:
+    """Call ``writer(tmp_path)`` then rename the temp file onto ``path``.
+
+    With ``force=False`` an existing ``path`` is a user error (nothing is overwritten).
+    """
+    target = Path(path)
+    if target.exists() and not force:
+        raise UserError(f"{target}: already exists; use --force to overwrite")
+    target.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp_name = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
+    os.close(fd)
+    tmp = Path(tmp_name)
+    try:
+        writer(tmp)
+        with open(tmp, "rb+") as fh:
+            os.fsync(fh.fileno())
+        os.replace(tmp, target)
+    finally:
+        if tmp.exists():
+            tmp.unlink()
+    return target
+
+
+def atomic_write_bytes(path: str | Path, data: bytes, *, force: bool = True) -> Path:
+    """Write ``data`` to ``path`` atomically."""
+    return atomic_write(path, lambda p: p.write_bytes(data), force=force)
+
+
+def atomic_write_parquet(frame: pd.DataFrame, path: str | Path, *, force: bool = True) -> Path:
+    """Write ``frame`` as Parquet (no index) to ``path`` atomically."""
+    return atomic_write(path, lambda p: frame.to_parquet(p, index=False), force=force)
+
+
+def atomic_write_csv(frame: pd.DataFrame, path: str | Path, *, force: bool = True) -> Path:
+    """Write ``frame`` as CSV (no index) to ``path`` atomically."""
+    return atomic_write(path, lambda p: frame.to_csv(p, index=False), force=force)
