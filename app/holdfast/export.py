@@ -1,0 +1,333 @@
+"""Exports of a session: the decisions table and the cleaned data set.
+
+Decisions table columns (``DECISION_COLUMNS``), one row per row that carries a decision or a note:
+``id`` (text), ``old_label`` (the label in the data, as text), ``new_label`` (text, relabels only),
+``decision`` (relabel, confirm, exclude, defer; ``clear`` = no decision, the row only carries a note),
+``note``, ``score`` (suspicion score from the findings), ``flags`` (comma-separated), ``time`` (ISO-8601
+UTC of the row's last change). Missing values are empty (null in Parquet, empty cell in CSV).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from holdfast.atomic import atomic_write
+from holdfast.errors import DataError, UserError
+from holdfast.journal import DECISIONS, Decision, Journal
+
+DECISION_COLUMNS: tuple[str, ...] = (
+    "id",
+    "old_label",
+    "new_label",
+    "decision",
+    "note",
+    "score",
+    "flags",
+    "time",
+)
+#: Columns a decisions file must have to be read back (the others are filled with empty values).
+REQUIRED_COLUMNS: tuple[str, ...] = ("id", "decision", "new_label")
+_TEXT_COLUMNS = tuple(c for c in DECISION_COLUMNS if c != "score")
+FORMATS = (".parquet", ".csv")
+
+
+@dataclass
+class CleanedExport:
+    """What :func:`export_cleaned` wrote: rows kept, rows relabelled and excluded, unmatched ids."""
+
+    path: Path
+    rows: int
+    relabelled: int
+    excluded: int
+    unmatched: list[str] = field(default_factory=list)
+
+
+# ---------------------------------------------------------------------------- decisions table
+def decisions_frame(journal: Journal, rows: pd.DataFrame) -> pd.DataFrame:
+    """The decisions table of ``journal`` joined with the findings per-row frame ``rows``.
+
+    ``rows`` needs the columns ``id``, ``label``, ``score`` and ``flags`` (see holdfast.findings). Rows of
+    the journal whose id is not in ``rows`` still appear, with empty ``old_label``, ``score`` and ``flags``.
+    Output order: the order of ``rows`` first, then unmatched ids in the order they were last changed.
+    """
+    missing = [c for c in ("id", "label", "score", "flags") if c not in rows.columns]
+    if missing:
+        raise ValueError(f"findings frame lacks column(s) {', '.join(missing)}")
+    current = journal.current(include_notes_only=True)
+    lookup = {str(i): n for n, i in enumerate(rows["id"].tolist())}
+    position = {rid: lookup.get(rid, len(lookup) + k) for k, rid in enumerate(current)}
+    records = []
+    labels = rows["label"].tolist()
+    scores = rows["score"].tolist()
+    flags = rows["flags"].tolist()
+    for rid in sorted(current, key=position.__getitem__):
+        d = current[rid]
+        n = lookup.get(rid)
+        records.append(
+            {
+                "id": rid,
+                "old_label": None if n is None else _text(labels[n]),
+                "new_label": d.new_label,
+                "decision": d.decision,
+                "note": d.note,
+                "score": np.nan if n is None else _float(scores[n]),
+                "flags": None if n is None else _text(flags[n]),
+                "time": d.time,
+            }
+        )
+    return _normalise(pd.DataFrame.from_records(records, columns=list(DECISION_COLUMNS)))
+
+
+def export_decisions(journal: Journal, rows: pd.DataFrame, path: str | Path, *, force: bool = False) -> Path:
+    """Write :func:`decisions_frame` to ``path`` (Parquet or CSV by suffix) atomically.
+
+    An existing file is a UserError unless ``force``; an unknown suffix is a UserError naming it.
+    """
+    target = Path(path)
+    _suffix(target)
+    _refuse_overwrite(target, force)
+    _write_frame(decisions_frame(journal, rows), target)
+    return target
+
+
+def read_decisions(path: str | Path) -> pd.DataFrame:
+    """Read a decisions file written by :func:`export_decisions` (or edited by hand) and validate it.
+
+    Needs the columns ``id``, ``decision`` and ``new_label``; other columns of the format are added empty
+    when absent and extra columns are dropped. Raises DataError naming the file and the missing column,
+    an unknown decision, a relabel without a new label, or a repeated id.
+    """
+    source = Path(path)
+    suffix = _suffix(source)
+    if not source.is_file():
+        raise DataError(f"{source}: no such decisions file")
+    try:
+        if suffix == ".parquet":
+            frame = pd.read_parquet(source)
+        else:
+            frame = pd.read_csv(source, dtype=str, keep_default_na=False)
+    except Exception as exc:  # pyarrow, pandas and OS errors alike: the file cannot be read
+        raise DataError(f"{source}: cannot read decisions file ({type(exc).__name__}: {exc})") from exc
+    for column in REQUIRED_COLUMNS:
+        if column not in frame.columns:
+            raise DataError(f"{source}: decisions file has no column '{column}'")
+    for column in DECISION_COLUMNS:
+        if column not in frame.columns:
+            frame[column] = np.nan if column == "score" else None
+    frame = frame[list(DECISION_COLUMNS)].copy()
+    try:
+        frame = _normalise(frame)
+    except ValueError as exc:
+        raise DataError(f"{source}: column 'score' is not numeric ({exc})") from exc
+    _validate(frame, source)
+    return frame
+
+
+def _validate(frame: pd.DataFrame, source: Path) -> None:
+    for i, (rid, decision, new_label) in enumerate(
+        zip(frame["id"], frame["decision"], frame["new_label"], strict=True)
+    ):
+        if rid is None:
+            raise DataError(f"{source}: row {i + 1} has an empty id")
+        if decision not in DECISIONS:
+            raise DataError(
+                f"{source}: row id '{rid}' has unknown decision '{decision}' "
+                f"(expected one of {', '.join(DECISIONS)})"
+            )
+        if decision == "relabel" and new_label is None:
+            raise DataError(f"{source}: row id '{rid}' is relabelled but has no new_label")
+    dup = frame["id"][frame["id"].duplicated()]
+    if len(dup):
+        raise DataError(f"{source}: row id '{dup.iloc[0]}' appears more than once")
+
+
+# ---------------------------------------------------------------------------- cleaned data set
+def row_ids(data: pd.DataFrame, id_column: str | None) -> list[str]:
+    """Row ids as text: the id column's values, or the 0-based row position when ``id_column`` is None."""
+    if id_column is None:
+        return [str(i) for i in range(len(data))]
+    if id_column not in data.columns:
+        raise DataError(f"id column '{id_column}' is not in the data")
+    return [str(v) for v in data[id_column].tolist()]
+
+
+def apply_decisions(
+    data: pd.DataFrame,
+    decisions: Mapping[str, Decision] | pd.DataFrame,
+    *,
+    id_column: str | None,
+    label_column: str,
+) -> pd.DataFrame:
+    """The data with decisions applied: relabels written, excluded rows removed, nothing else changed.
+
+    ``decisions`` is a journal's :meth:`~holdfast.journal.Journal.current` dict or a decisions frame (as
+    from :func:`read_decisions`); frames are converted to the dict shape. Confirm, defer and clear leave a
+    row as it is; decisions whose id is not in the data are ignored here (see ``Journal.reconcile``).
+    Columns, their order and dtypes, and the row order and index of the kept rows are preserved. A new
+    label is matched to an existing label with the same text, else cast to the label column's dtype
+    (UserError naming the value when it cannot be).
+    """
+    if label_column not in data.columns:
+        raise DataError(f"label column '{label_column}' is not in the data")
+    table = decisions_dict(decisions) if isinstance(decisions, pd.DataFrame) else decisions
+    ids = row_ids(data, id_column)
+    if len(set(ids)) != len(ids):
+        seen: set[str] = set()
+        dup = next(i for i in ids if i in seen or seen.add(i))  # type: ignore[func-returns-value]
+        raise DataError(f"id column '{id_column}' has the id '{dup}' more than once")
+    column = data[label_column]
+    labels = column.tolist()
+    keep = np.ones(len(data), dtype=bool)
+    caster = _LabelCaster(column, label_column)
+    for n, rid in enumerate(ids):
+        d = table.get(rid)
+        if d is None:
+            continue
+        if d.decision == "exclude":
+            keep[n] = False
+        elif d.decision == "relabel" and d.new_label is not None:
+            labels[n] = caster(d.new_label)
+    out = data.copy()
+    out[label_column] = pd.Series(labels, index=data.index, dtype=column.dtype)
+    return out.loc[keep]
+
+
+def export_cleaned(
+    journal: Journal,
+    data: pd.DataFrame,
+    path: str | Path,
+    *,
+    id_column: str | None,
+    label_column: str,
+    force: bool = False,
+) -> CleanedExport:
+    """Write the data with the journal's decisions applied (:func:`apply_decisions`) to ``path`` atomically.
+
+    Parquet or CSV by suffix; an existing file is a UserError unless ``force``.
+    """
+    target = Path(path)
+    _suffix(target)
+    _refuse_overwrite(target, force)
+    current = journal.current()
+    cleaned = apply_decisions(data, current, id_column=id_column, label_column=label_column)
+    present = set(row_ids(data, id_column))
+    _write_frame(cleaned, target)
+    return CleanedExport(
+        path=target,
+        rows=len(cleaned),
+        relabelled=sum(d.decision == "relabel" and rid in present for rid, d in current.items()),
+        excluded=len(data) - len(cleaned),
+        unmatched=[rid for rid in current if rid not in present],
+    )
+
+
+def decisions_dict(frame: pd.DataFrame) -> dict[str, Decision]:
+    """Turn a decisions frame into the ``Journal.current()`` shape (row id -> Decision)."""
+    out: dict[str, Decision] = {}
+    for rec in frame.to_dict("records"):
+        out[str(rec["id"])] = Decision(
+            row_id=str(rec["id"]),
+            decision=str(rec["decision"]),
+            new_label=_text(rec.get("new_label")),
+            note=_text(rec.get("note")),
+            time=_text(rec.get("time")) or "",
+        )
+    return out
+
+
+class _LabelCaster:
+    """Turn a journal label (text) into a value of the label column's dtype."""
+
+    def __init__(self, column: pd.Series, name: str) -> None:
+        self.dtype = column.dtype
+        self.name = name
+        self.by_text: dict[str, object] = {}
+        if pd.api.types.is_bool_dtype(column.dtype):
+            self.by_text.update({"True": True, "False": False})
+        if isinstance(column.dtype, pd.CategoricalDtype):
+            self.by_text.update({str(c): c for c in column.dtype.categories})
+        self.by_text.update({str(v): v for v in pd.unique(column.dropna())})
+
+    def __call__(self, text: str) -> object:
+        if text in self.by_text:
+            return self.by_text[text]
+        dtype = self.dtype
+        try:
+            if isinstance(dtype, pd.CategoricalDtype):
+                raise ValueError("not one of the categories")
+            if pd.api.types.is_bool_dtype(dtype):
+                raise ValueError("not True or False")
+            if pd.api.types.is_numeric_dtype(dtype):
+                value = pd.Series([text]).astype(dtype).iloc[0]
+                if pd.api.types.is_float_dtype(dtype) or float(text) == value:
+                    return value
+                raise ValueError("not a whole number")
+            if pd.api.types.is_datetime64_any_dtype(dtype):
+                return pd.Series([text]).astype(dtype).iloc[0]
+        except (ValueError, TypeError, OverflowError) as exc:
+            raise DataError(
+                f"label column '{self.name}': new label '{text}' does not fit the column type {dtype} ({exc})"
+            ) from exc
+        return text
+
+
+# ---------------------------------------------------------------------------- helpers
+def _suffix(path: Path) -> str:
+    suffix = path.suffix.lower()
+    if suffix not in FORMATS:
+        raise UserError(f"{path}: unknown file type '{path.suffix}'; use .parquet or .csv")
+    return suffix
+
+
+def _refuse_overwrite(path: Path, force: bool) -> None:
+    if path.exists() and not force:
+        raise UserError(f"{path}: already exists; use --force to overwrite")
+
+
+def _write_frame(frame: pd.DataFrame, path: Path) -> None:
+    if _suffix(path) == ".parquet":
+
+        def writer(p: Path) -> None:
+            frame.to_parquet(p, index=False)
+
+    else:
+
+        def writer(p: Path) -> None:
+            frame.to_csv(p, index=False)
+
+    try:
+        atomic_write(path, writer, force=True)
+    except UserError:
+        raise
+    except Exception as exc:  # OS and pyarrow errors: the file was not written, nothing is left behind
+        raise UserError(f"{path}: cannot write ({type(exc).__name__}: {exc})") from exc
+
+
+def _normalise(frame: pd.DataFrame) -> pd.DataFrame:
+    """Text columns as object with None for empty; score as float."""
+    for column in _TEXT_COLUMNS:
+        frame[column] = pd.Series([_text(v) for v in frame[column].tolist()], index=frame.index, dtype=object)
+    frame["score"] = pd.to_numeric(
+        pd.Series([None if v is None or v == "" else v for v in frame["score"].tolist()], index=frame.index),
+        errors="raise",
+    ).astype(float)
+    return frame
+
+
+def _text(value: object) -> str | None:
+    if value is None or value is pd.NA or (isinstance(value, float) and np.isnan(value)):
+        return None
+    text = str(value)
+    return text if text != "" else None
+
+
+def _float(value: object) -> float:
+    try:
+        return float(value)  # type: ignore[arg-type]
+    except (TypeError, ValueError):
+        return float("nan")
