@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 import shutil
 import sqlite3
 import tempfile
@@ -425,44 +426,41 @@ def test_session_beside_the_data(tmp_path: Path) -> None:
     assert message is None
 
 
-def _unwritable_folder_file(tmp_path: Path) -> Path:
-    """A data file in a folder where no file can be created, for the user running the tests."""
-    import os
-
+@pytest.fixture
+def unwritable_data(tmp_path: Path):
+    """A data file in a folder where no file can be created by the user running the tests."""
     if os.geteuid() != 0:
         folder = tmp_path / "readonly"
         folder.mkdir()
         data = folder / "packhouse.parquet"
         data.write_bytes(b"")
         folder.chmod(0o555)
-        return data
+        yield data
+        folder.chmod(0o755)
+        return
     proc_file = Path("/proc/version")  # root may write anywhere except pseudo file systems
     if not proc_file.is_file():
         pytest.skip("no folder is read-only for this user")
-    return proc_file
+    yield proc_file
 
 
-def test_session_falls_back_to_user_data_folder(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
-    data = _unwritable_folder_file(tmp_path)
+def test_session_falls_back_to_user_data_folder(
+    tmp_path: Path, unwritable_data: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
     monkeypatch.setenv("XDG_DATA_HOME", str(tmp_path / "xdg"))
-    try:
-        path, message = default_session_path(data)
-    finally:
-        data.parent.chmod(0o755) if data.parent.is_relative_to(tmp_path) else None
+    path, message = default_session_path(unwritable_data)
     assert path.parent == tmp_path / "xdg" / "holdfast"
-    assert path.name.startswith(data.stem + "-") and path.name.endswith(".holdfast.db")
-    assert message is not None and str(data.parent) in message and str(path) in message
+    assert path.name.startswith(unwritable_data.stem + "-") and path.name.endswith(".holdfast.db")
+    assert message is not None and str(unwritable_data.parent) in message and str(path) in message
     with make(path) as j:  # the fallback location is usable
         j.record("0", "confirm")
     assert path.is_file()
 
 
-def test_session_fallback_without_xdg(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
-    data = _unwritable_folder_file(tmp_path)
+def test_session_fallback_without_xdg(
+    tmp_path: Path, unwritable_data: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
     monkeypatch.delenv("XDG_DATA_HOME", raising=False)
     monkeypatch.setenv("HOME", str(tmp_path / "home"))
-    try:
-        path, _ = default_session_path(data)
-    finally:
-        data.parent.chmod(0o755) if data.parent.is_relative_to(tmp_path) else None
+    path, _ = default_session_path(unwritable_data)
     assert path.parent == tmp_path / "home" / ".local" / "share" / "holdfast"
