@@ -1,0 +1,182 @@
+"""Feature preparation: column checks, one-hot encoding and standard scaling.
+
+Preparation is unsupervised and fitted once on the training rows (split column false or absent); every
+LOO refit reuses the same prepared matrix, so only the learner is refitted.
+"""
+
+from __future__ import annotations
+
+import difflib
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from holdfast.data.spec import Spec
+from holdfast.errors import DataError
+
+MISSING_CATEGORY = "(missing)"
+
+
+@dataclass
+class Prepared:
+    """The data set ready for the learner. Arrays cover all input rows; ``train`` marks training rows."""
+
+    frame: pd.DataFrame
+    X: np.ndarray
+    feature_names: list[str]
+    features: list[str]
+    numeric: list[str]
+    categorical: list[str]
+    y: np.ndarray
+    classes: list
+    ids: np.ndarray
+    train: np.ndarray
+    label_column: str
+    id_column: str | None
+    split_column: str | None
+    categories: dict[str, list[str]] = field(default_factory=dict)
+
+    @property
+    def train_index(self) -> np.ndarray:
+        """Input positions of the training rows."""
+        return np.flatnonzero(self.train)
+
+    @property
+    def labels(self) -> pd.Series:
+        """The label column as given."""
+        return self.frame[self.label_column]
+
+
+def _missing_column(name: str, role: str, frame: pd.DataFrame, source: str) -> DataError:
+    near = difflib.get_close_matches(name, [str(c) for c in frame.columns], n=1, cutoff=0.5)
+    hint = f"; did you mean '{near[0]}'?" if near else f"; columns are: {', '.join(map(str, frame.columns[:12]))}"
+    return DataError(f"{source}: no column '{name}' ({role}){hint}")
+
+
+def _is_numeric(s: pd.Series) -> bool:
+    return pd.api.types.is_numeric_dtype(s) or pd.api.types.is_bool_dtype(s)
+
+
+def label_text(values: pd.Series) -> np.ndarray:
+    """Labels as text, for display and ids (integers stay integers: 1.0 -> '1')."""
+    return np.array([str(v) for v in values], dtype=object)
+
+
+def prepare(frame: pd.DataFrame, spec: Spec, source: str = "<data>") -> Prepared:
+    """Check the columns the spec names, split train/held-out, encode and scale the features."""
+    d = spec.data
+    for name, role in ((d.label, "label"), (d.id, "id"), (d.split, "split")):
+        if name is not None and name not in frame.columns:
+            raise _missing_column(name, role, frame, source)
+    n = len(frame)
+
+    # split
+    if d.split is not None:
+        s = frame[d.split]
+        if pd.api.types.is_bool_dtype(s) and not s.isna().any():
+            held = s.to_numpy(dtype=bool)
+        elif pd.api.types.is_integer_dtype(s) and set(pd.unique(s)) <= {0, 1}:
+            held = s.to_numpy() == 1
+        else:
+            raise DataError(f"{source}: split column '{d.split}' must be boolean (true = held out), got {s.dtype}")
+        train = ~held
+    else:
+        train = np.ones(n, dtype=bool)
+    if train.sum() < 2:
+        raise DataError(f"{source}: fewer than 2 training rows (split column '{d.split}' holds out the rest)")
+
+    # ids
+    if d.id is not None:
+        id_s = frame[d.id]
+        if id_s.isna().any():
+            first = int(np.flatnonzero(id_s.isna().to_numpy())[0])
+            raise DataError(f"{source}: id column '{d.id}' is empty at row {first}")
+        ids = label_text(id_s)
+        dup = pd.Series(ids).duplicated()
+        if dup.any():
+            first = int(np.flatnonzero(dup.to_numpy())[0])
+            raise DataError(f"{source}: id column '{d.id}' repeats id '{ids[first]}' (row {first}); ids must be unique")
+    else:
+        ids = np.array([str(i) for i in range(n)], dtype=object)
+
+    # label
+    lab = frame[d.label]
+    if lab.isna().any():
+        first = int(np.flatnonzero(lab.isna().to_numpy())[0])
+        raise DataError(f"{source}: label column '{d.label}' is empty at row {first} (id {ids[first]})")
+    train_labels = lab[train]
+    classes = sorted(pd.unique(train_labels).tolist(), key=lambda v: (str(type(v)), v))
+    if len(classes) < 2:
+        only = classes[0] if classes else "none"
+        raise DataError(f"{source}: label column '{d.label}' has one class only ({only!r}) in the training rows")
+    code_of = {c: i for i, c in enumerate(classes)}
+    y = np.array([code_of.get(v, -1) for v in lab.tolist()], dtype=np.int64)
+
+    # features
+    if d.features is not None:
+        features = list(d.features)
+        for f in features:
+            if f not in frame.columns:
+                raise _missing_column(f, "feature", frame, source)
+    else:
+        features = [c for c in frame.columns if c not in (d.label, d.id, d.split)]
+        if not features:
+            raise DataError(f"{source}: no feature columns (every column is the label, id or split)")
+    numeric: list[str] = []
+    categorical: list[str] = []
+    for f in features:
+        s = frame[f]
+        if _is_numeric(s):
+            numeric.append(f)
+        elif pd.api.types.is_datetime64_any_dtype(s) or pd.api.types.is_timedelta64_dtype(s):
+            raise DataError(f"{source}: feature column '{f}' holds dates/times; convert it to numbers or leave it out")
+        else:
+            if spec.prepare.categorical == "error":
+                raise DataError(
+                    f"{source}: feature column '{f}' is not numeric and prepare.categorical = \"error\""
+                )
+            categorical.append(f)
+
+    blocks: list[np.ndarray] = []
+    names: list[str] = []
+    if numeric:
+        num = frame[numeric].astype("float64").to_numpy(copy=True)
+        bad = ~np.isfinite(num)
+        if bad.any():
+            r, c = np.argwhere(bad)[0]
+            what = "NaN (missing)" if np.isnan(num[r, c]) else "infinite"
+            count = int(bad[:, c].sum())
+            raise DataError(
+                f"{source}: feature column '{numeric[c]}' has {count} {what} value(s), first at row {r} "
+                f"(id {ids[r]}); fill or drop them first"
+            )
+        if spec.prepare.scale == "standard":
+            mean = num[train].mean(axis=0)
+            std = num[train].std(axis=0)
+            std[std == 0] = 1.0
+            num = (num - mean) / std
+        blocks.append(num)
+        names.extend(numeric)
+    categories: dict[str, list[str]] = {}
+    for f in categorical:
+        s = frame[f]
+        text = np.array([MISSING_CATEGORY if pd.isna(v) else str(v) for v in s.tolist()], dtype=object)
+        levels = sorted(set(text[train].tolist()))
+        if len(levels) > 100 and len(levels) > 0.5 * int(train.sum()):
+            raise DataError(
+                f"{source}: feature column '{f}' has {len(levels)} distinct text values and looks like an id; "
+                f"set it as data.id or leave it out of data.features"
+            )
+        categories[f] = levels
+        onehot = (text[:, None] == np.array(levels, dtype=object)[None, :]).astype(np.float64)
+        blocks.append(onehot)
+        names.extend(f"{f}={lv}" for lv in levels)
+    X = np.hstack(blocks) if blocks else np.zeros((n, 0))
+    if X.shape[1] == 0:
+        raise DataError(f"{source}: no usable feature columns")
+    return Prepared(
+        frame=frame, X=np.ascontiguousarray(X), feature_names=names, features=features, numeric=numeric,
+        categorical=categorical, y=y, classes=classes, ids=ids, train=train, label_column=d.label,
+        id_column=d.id, split_column=d.split, categories=categories,
+    )

@@ -1,0 +1,80 @@
+"""Resumable result cache: refits already done survive an interruption; a finished scan reopens at once.
+
+Layout: ``<cache root>/<data fingerprint>-<spec fingerprint>/`` holding ``refits.sqlite`` (one row per
+finished refit, committed as results arrive) and, once the scan finished, ``rows.parquet``,
+``summary.json`` and ``flips.parquet``. The root is ``$HOLDFAST_CACHE_DIR``, else
+``$XDG_CACHE_HOME/holdfast``, else ``~/.cache/holdfast``.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import sqlite3
+from pathlib import Path
+
+import numpy as np
+
+from holdfast import __version__
+from holdfast.learners.base import RefitOutcome
+
+
+def cache_root() -> Path:
+    """The folder holding all scan caches."""
+    env = os.environ.get("HOLDFAST_CACHE_DIR")
+    if env:
+        return Path(env)
+    xdg = os.environ.get("XDG_CACHE_HOME")
+    return (Path(xdg) if xdg else Path.home() / ".cache") / "holdfast"
+
+
+def cache_dir(data_fingerprint: str, spec_fingerprint: str, root: Path | None = None) -> Path:
+    """The cache folder of one data set + spec."""
+    return (root or cache_root()) / f"{data_fingerprint}-{spec_fingerprint}-v{__version__}"
+
+
+class RefitStore:
+    """Finished refits of one scan, in SQLite; keyed by a hash of the support set so a different fit
+    (other solver, other library version) never reuses stale refits."""
+
+    def __init__(self, path: Path, support_key: str) -> None:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        self.path = path
+        self.conn = sqlite3.connect(path)
+        self.conn.execute("PRAGMA journal_mode=WAL")
+        self.conn.execute("CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value TEXT)")
+        self.conn.execute(
+            "CREATE TABLE IF NOT EXISTS refits (row INTEGER PRIMARY KEY, loo INTEGER, max_change REAL, flipped TEXT)"
+        )
+        old = self.conn.execute("SELECT value FROM meta WHERE key='support_key'").fetchone()
+        if old is None or old[0] != support_key:
+            with self.conn:
+                self.conn.execute("DELETE FROM refits")
+                self.conn.execute("INSERT OR REPLACE INTO meta VALUES ('support_key', ?)", (support_key,))
+        self.conn.commit()
+
+    def load(self) -> dict[int, RefitOutcome]:
+        """All refits stored so far."""
+        out: dict[int, RefitOutcome] = {}
+        for row, loo, change, flipped in self.conn.execute("SELECT row, loo, max_change, flipped FROM refits"):
+            out[int(row)] = RefitOutcome(
+                row=int(row), loo_code=int(loo), flipped=np.array(json.loads(flipped), dtype=np.int64),
+                max_change=float("inf") if change is None else float(change),
+            )
+        return out
+
+    def add(self, outcomes: list[RefitOutcome]) -> None:
+        """Commit finished refits."""
+        with self.conn:
+            self.conn.executemany(
+                "INSERT OR REPLACE INTO refits VALUES (?, ?, ?, ?)",
+                [
+                    (o.row, o.loo_code, None if not np.isfinite(o.max_change) else o.max_change,
+                     json.dumps(o.flipped.tolist()))
+                    for o in outcomes
+                ],
+            )
+
+    def close(self) -> None:
+        """Close the connection."""
+        self.conn.close()

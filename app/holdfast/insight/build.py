@@ -1,0 +1,228 @@
+"""Assemble the findings: the per-row frame (evidence, flags, score, rank) and the summary (counts,
+bounds with their sources, explanation)."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from holdfast import __version__
+from holdfast.data.prepare import Prepared
+from holdfast.data.spec import Spec
+from holdfast.engine.loo import LooResult
+from holdfast.findings import ROW_COLUMNS, Findings
+from holdfast.insight import bounds as B
+from holdfast.insight.flags import FLAG_REASONS, compute_flags
+from holdfast.insight.score import rank_rows, suspicion_score
+from holdfast.learners.base import FittedModel
+
+
+def _class_values(prepared: Prepared, codes: np.ndarray) -> pd.Series:
+    classes = prepared.classes
+    labels = prepared.labels
+    values = [classes[c] if c >= 0 else None for c in codes]
+    return pd.Series(values, dtype=labels.dtype if labels.dtype != object else object)
+
+
+def neighbour_evidence(prepared: Prepared, k: int) -> pd.DataFrame:
+    """Neighbour dissent and twin conflicts for every training row (NaN/0 for held-out rows)."""
+    from holdfast.insight.neighbours import neighbour_dissent, twin_conflicts
+
+    n = len(prepared.frame)
+    tr = prepared.train_index
+    X = prepared.X[tr]
+    y = prepared.y[tr]
+    dissent = np.full(n, np.nan)
+    majority = np.full(n, -1, dtype=np.int64)
+    twins = np.zeros(n, dtype=np.int64)
+    if len(tr) > 1:
+        nb = neighbour_dissent(X, y, k=k)
+        dissent[tr] = nb.dissent
+        majority[tr] = nb.majority
+        twins[tr] = twin_conflicts(X, y)
+    return pd.DataFrame(
+        {"neighbour_dissent": dissent, "neighbour_majority": majority, "twin_conflicts": twins}
+    )
+
+
+def build_rows(
+    prepared: Prepared,
+    model: FittedModel,
+    loo: LooResult,
+    *,
+    held_pred: np.ndarray,
+    held_decision: np.ndarray | None,
+    k: int,
+) -> pd.DataFrame:
+    """The per-row frame over all input rows, in input order."""
+    n = len(prepared.frame)
+    tr = prepared.train_index
+    held = np.flatnonzero(~prepared.train)
+    pred = np.full(n, -1, dtype=np.int64)
+    loo_pred = np.full(n, -1, dtype=np.int64)
+    pred[tr] = model.prediction
+    loo_pred[tr] = loo.loo_code
+    pred[held] = held_pred
+    loo_pred[held] = held_pred
+    margin = np.full(n, np.nan)
+    margin[tr] = model.margin
+    if held_decision is not None and len(held):
+        yh = prepared.y[held]
+        known = yh >= 0
+        if held_decision.ndim == 1:
+            mh = np.where(yh == 1, 1.0, -1.0) * held_decision
+        else:
+            own = held_decision[np.arange(len(held)), np.maximum(yh, 0)]
+            other = np.where(np.eye(held_decision.shape[1], dtype=bool)[np.maximum(yh, 0)], -np.inf, held_decision)
+            mh = own - other.max(axis=1)
+        margin[held] = np.where(known, mh, np.nan)
+
+    def spread(values: np.ndarray, fill: Any, dtype: Any) -> np.ndarray:
+        out = np.full(n, fill, dtype=dtype)
+        out[tr] = values
+        return out
+
+    labels = prepared.labels.reset_index(drop=True)
+    rows = pd.DataFrame(
+        {
+            "row": np.arange(n, dtype=np.int64),
+            "id": pd.Series(prepared.ids, dtype="string"),
+            "label": labels,
+            "prediction": _class_values(prepared, pred),
+            "loo_prediction": _class_values(prepared, loo_pred),
+            "loo_miss": loo_pred != prepared.y,
+            "support": spread(model.support, False, bool),
+            "essential": spread(loo.essential, False, bool),
+            "bounded": spread(model.bounded, False, bool),
+            "alpha": spread(model.alpha, 0.0, float),
+            "margin": margin,
+            "flip_count": spread(loo.flip_count, 0, np.int64),
+            "held_out": ~prepared.train,
+        }
+    )
+    rows = pd.concat([rows, neighbour_evidence(prepared, k)], axis=1)
+    rows = compute_flags(rows)
+    rows["score"] = suspicion_score(rows)
+    rows["rank"] = rank_rows(rows["score"].to_numpy())
+    first = [c for c in ROW_COLUMNS if c in rows.columns]
+    return rows[first + [c for c in rows.columns if c not in first]]
+
+
+def bounds_summary(
+    prepared: Prepared, model: FittedModel, loo: LooResult, rows: pd.DataFrame, delta: float
+) -> dict[str, Any]:
+    """Bounds and estimates side by side, each with its name and published source."""
+    tr = prepared.train_index
+    m = len(tr)
+    d = int(model.support.sum())
+    y = model.y
+    train_err_outside = int(((model.prediction != y) & ~model.support).sum())
+    loo_miss_outside = int(((loo.loo_code != y) & ~model.support).sum())
+    out: dict[str, Any] = {
+        "support_fraction": {
+            "name": "support fraction d/m",
+            "value": B.support_fraction(d, m),
+            "source": "Vapnik 1995, The Nature of Statistical Learning Theory (LOO errors <= d)",
+        },
+        "loo_bound": {
+            "name": "LOO bound",
+            "value": B.loo_bound(d, loo_miss_outside, m),
+            "source": "Vapnik 1995: (d + LOO misses outside the support set) / m",
+            "misses_outside": loo_miss_outside,
+        },
+        "loo_error": {
+            "name": "exact LOO error",
+            "value": float((loo.loo_code != y).mean()),
+            "source": "leave-one-out refits of the support rows (exact)",
+        },
+        "compression": {
+            "name": "compression bound",
+            "value": B.compression_bound(m, d, train_err_outside, delta),
+            "delta": delta,
+            "k": train_err_outside,
+            "source": "Langford 2005, Tutorial on practical prediction theory for classification, JMLR 6 "
+            "(sample compression bound; after Littlestone & Warmuth 1986, Floyd & Warmuth 1995)",
+            "note": f"delta={delta}",
+        },
+    }
+    if model.family == "svm":
+        xa = B.xi_alpha(model.alpha, model.margin, model.extras["kernel_r2"])
+        out["xi_alpha"] = {
+            "name": "xi-alpha estimate",
+            "value": xa.count / m,
+            "count": int(xa.count),
+            "rho": xa.rho,
+            "R2": xa.r2,
+            "source": "Joachims 2000, Estimating the generalization performance of a SVM efficiently, ICML",
+        }
+    held = ~prepared.train
+    if held.any():
+        hr = rows[held]
+        n_h = int(len(hr))
+        k_h = int(hr["loo_miss"].sum())
+        out["test_set"] = {
+            "name": "test-set bound",
+            "value": B.test_set_bound(n_h, k_h, delta),
+            "n": n_h,
+            "errors": k_h,
+            "delta": delta,
+            "source": "Langford 2005, Tutorial on practical prediction theory for classification, JMLR 6 "
+            "(test-set bound)",
+            "note": f"delta={delta}",
+        }
+    return out
+
+
+def build_findings(
+    prepared: Prepared,
+    spec: Spec,
+    model: FittedModel,
+    loo: LooResult,
+    *,
+    held_pred: np.ndarray,
+    held_decision: np.ndarray | None,
+    seconds: float,
+) -> Findings:
+    """Per-row frame and summary for one scan."""
+    rows = build_rows(prepared, model, loo, held_pred=held_pred, held_decision=held_decision, k=spec.insight.k)
+    tr = prepared.train_index
+    m = len(tr)
+    y = model.y
+    d = int(model.support.sum())
+    bounds = bounds_summary(prepared, model, loo, rows, spec.insight.delta)
+    counts = np.bincount(y, minlength=len(prepared.classes))
+    summary: dict[str, Any] = {
+        "holdfast_version": __version__,
+        "data": {
+            "rows_total": int(len(prepared.frame)),
+            "features": prepared.features,
+            "prepared_features": len(prepared.feature_names),
+        },
+        "spec": spec.to_dict(),
+        "spec_fingerprint": spec.fingerprint(),
+        "learner": model.params,
+        "classes": [str(c) for c in prepared.classes],
+        "class_counts": {str(c): int(n) for c, n in zip(prepared.classes, counts, strict=True)},
+        "m": m,
+        "d": d,
+        "bounded": int(model.bounded.sum()),
+        "free": int(d - model.bounded.sum()),
+        "essential": int(loo.essential.sum()),
+        "training_errors": int((model.prediction != y).sum()),
+        "loo_errors": int((loo.loo_code != y).sum()),
+        "loo_exact": bool(model.loo_exact),
+        "solver_tol": model.params.get("tol"),
+        "flags": {name: int(rows[f"flag_{name}"].sum()) for name in FLAG_REASONS},
+        "bounds": bounds,
+        "refits": int(loo.refits),
+        "resumed_refits": int(loo.resumed),
+        "seconds": round(float(seconds), 3),
+    }
+    held = ~prepared.train
+    if held.any():
+        n_h = int(held.sum())
+        e_h = int(rows.loc[held, "loo_miss"].sum())
+        summary["held_out"] = {"n": n_h, "errors": e_h, "error_rate": e_h / n_h}
+    return Findings(rows=rows, summary=summary, classes=[str(c) for c in prepared.classes])

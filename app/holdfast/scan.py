@@ -1,0 +1,161 @@
+"""The scan: data set + spec -> prepared matrix -> fit -> support rows -> exact LOO -> findings.
+
+Both faces call :func:`run_scan` (the CLI's ``scan`` and the inspector's background worker), so their
+results are the same.
+"""
+
+from __future__ import annotations
+
+import json
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from holdfast import __version__
+from holdfast.atomic import atomic_write_parquet
+from holdfast.data.load import fingerprint_file, read_table
+from holdfast.data.prepare import Prepared, prepare
+from holdfast.data.spec import Spec
+from holdfast.engine.cache import RefitStore, cache_dir
+from holdfast.engine.loo import LooResult, Progress, exact_loo, support_key
+from holdfast.findings import Findings
+from holdfast.learners import make_learner
+from holdfast.learners.base import FittedModel
+
+
+@dataclass
+class Scan:
+    """A finished scan: the findings plus what the faces need to explain a row."""
+
+    findings: Findings
+    prepared: Prepared
+    data_path: Path | None
+    spec: Spec
+    #: input row position -> input row positions whose prediction flips when that row is left out
+    flips: dict[int, np.ndarray] = field(default_factory=dict)
+    model: FittedModel | None = None
+    from_cache: bool = False
+
+
+def analyse(
+    prepared: Prepared,
+    spec: Spec,
+    *,
+    progress: Progress | None = None,
+    should_cancel: Callable[[], bool] | None = None,
+    store: RefitStore | None = None,
+    store_factory: Callable[[str], RefitStore] | None = None,
+) -> tuple[Findings, dict[int, np.ndarray], FittedModel]:
+    """Fit, run exact LOO over the support rows, gather the evidence; return findings and flips."""
+    from holdfast.insight.build import build_findings
+
+    start = time.monotonic()
+    train_idx = prepared.train_index
+    X_train = prepared.X[train_idx]
+    y_train = prepared.y[train_idx]
+    learner = make_learner(spec.learner)
+    model = learner.fit(X_train, y_train)
+    if store is None and store_factory is not None:
+        store = store_factory(support_key(model))
+    try:
+        loo: LooResult = exact_loo(
+            model, learner.refit_problem(), jobs=spec.run.jobs, backend=spec.run.backend,
+            scheduler=spec.run.scheduler, store=store, progress=progress, should_cancel=should_cancel,
+        )
+    finally:
+        if store is not None:
+            store.close()
+    held_idx = np.flatnonzero(~prepared.train)
+    held_decision = learner.decision(prepared.X[held_idx]) if len(held_idx) else None
+    held_pred = learner.predict(prepared.X[held_idx]) if len(held_idx) else np.empty(0, dtype=np.int64)
+    findings = build_findings(
+        prepared, spec, model, loo, held_pred=held_pred, held_decision=held_decision,
+        seconds=time.monotonic() - start,
+    )
+    flips = {int(train_idx[r]): train_idx[v] for r, v in loo.flipped.items()}
+    return findings, flips, model
+
+
+def _flips_frame(flips: dict[int, np.ndarray]) -> pd.DataFrame:
+    rows = [(r, int(v)) for r, vs in flips.items() for v in vs]
+    return pd.DataFrame(rows, columns=["row", "flipped_row"], dtype="int64")
+
+
+def _read_cached(folder: Path, prepared: Prepared, spec: Spec, data_path: Path) -> Scan | None:
+    try:
+        rows = pd.read_parquet(folder / "rows.parquet")
+        summary = json.loads((folder / "summary.json").read_text())
+        flips_df = pd.read_parquet(folder / "flips.parquet")
+    except (OSError, ValueError):
+        return None
+    if len(rows) != len(prepared.frame) or summary.get("holdfast_version") != __version__:
+        return None
+    flips: dict[int, np.ndarray] = {
+        int(r): g["flipped_row"].to_numpy() for r, g in flips_df.groupby("row", sort=False)
+    }
+    summary["data"]["path"] = str(data_path)
+    return Scan(
+        findings=Findings(rows=rows, summary=summary, classes=[str(c) for c in prepared.classes]),
+        prepared=prepared, data_path=data_path, spec=spec, flips=flips, from_cache=True,
+    )
+
+
+def run_scan(
+    data_path: str | Path,
+    spec: Spec,
+    *,
+    progress: Progress | None = None,
+    should_cancel: Callable[[], bool] | None = None,
+    use_cache: bool | None = None,
+    cache_root: Path | None = None,
+    frame: pd.DataFrame | None = None,
+) -> Scan:
+    """Scan a data file with a spec. Reuses a finished scan of the same data + spec from the cache and
+    resumes an interrupted one. ``frame`` may pass the already-read table."""
+    path = Path(data_path)
+    if frame is None:
+        frame = read_table(path)
+    data_fp = fingerprint_file(path)
+    prepared = prepare(frame, spec, source=str(path))
+    cache = spec.run.cache if use_cache is None else use_cache
+    folder = cache_dir(data_fp, spec.fingerprint(), cache_root) if cache else None
+    if folder is not None and (folder / "summary.json").exists():
+        cached = _read_cached(folder, prepared, spec, path)
+        if cached is not None:
+            if progress is not None:
+                d = int(cached.findings.summary.get("d", 0))
+                progress(d, d, 0.0)
+            return cached
+    factory = (lambda key: RefitStore(folder / "refits.sqlite", key)) if folder is not None else None
+    findings, flips, model = analyse(
+        prepared, spec, progress=progress, should_cancel=should_cancel, store_factory=factory
+    )
+    findings.summary["data"].update({"path": str(path), "fingerprint": data_fp})
+    if folder is not None:
+        atomic_write_parquet(_flips_frame(flips), folder / "flips.parquet")
+        findings.write(folder)
+    return Scan(findings=findings, prepared=prepared, data_path=path, spec=spec, flips=flips, model=model)
+
+
+def summary_text(summary: dict[str, Any]) -> str:
+    """A short human summary for the terminal."""
+    b = summary["bounds"]
+    lines = [
+        f"rows (training)    {summary['m']}" + (f"   held out {summary['held_out']['n']}" if summary.get("held_out") else ""),
+        f"support rows d     {summary['d']}  ({summary['bounded']} bounded, {summary['d'] - summary['bounded']} free)",
+        f"training errors    {summary['training_errors']}",
+        f"LOO errors         {summary['loo_errors']}  ({'exact' if summary['loo_exact'] else 'approximate'})",
+    ]
+    for key in ("support_fraction", "loo_bound", "xi_alpha", "span", "compression", "test_set"):
+        if key in b:
+            item = b[key]
+            lines.append(f"{item['name']:<19}{item['value']:.4f}   {item.get('note', '')}".rstrip())
+    if summary.get("held_out"):
+        h = summary["held_out"]
+        lines.append(f"held-out errors    {h['errors']} of {h['n']}  ({h['error_rate']:.4f})")
+    return "\n".join(lines)
