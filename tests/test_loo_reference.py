@@ -92,7 +92,10 @@ def test_multiclass_iris_matches_leave_one_out():
     assert int((result.loo_code != _reference_loo(X, y, learner)).sum()) == 0
 
 
-def test_parallel_refits_match_serial(cancer_subsample):
+def test_parallel_refits_match_serial(cancer_subsample, monkeypatch):
+    import holdfast.engine.parallel as par
+
+    monkeypatch.setattr(par, "IN_PROCESS_SECONDS", 0.0)  # force worker processes even for a short job
     X, y = cancer_subsample
     learner = SVMLearner(kernel="rbf", C=1.0)
     model = learner.fit(X, y)

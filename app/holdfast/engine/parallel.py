@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import os
 import tempfile
+import time
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from dataclasses import replace
@@ -17,6 +18,10 @@ import numpy as np
 
 from holdfast.errors import Cancelled, UserError
 from holdfast.learners.base import RefitOutcome, RefitProblem
+
+
+#: below this estimated serial time, refits run in-process (no worker start-up)
+IN_PROCESS_SECONDS = 4.0
 
 
 def refit_batch(problem: RefitProblem, rows: list[int]) -> list[RefitOutcome]:
@@ -68,6 +73,14 @@ def run_refits(
     if backend == "dask":
         _run_dask(problem, rows, n_jobs, scheduler, on_results, cancel)
         return
+    if n_jobs > 1:
+        # Starting worker processes costs seconds: time one refit here and stay in-process when the
+        # whole job is short anyway.
+        t0 = time.perf_counter()
+        on_results([problem.refit_without(int(rows[0]))])
+        rows = rows[1:]
+        if (time.perf_counter() - t0) * len(rows) < IN_PROCESS_SECONDS:
+            n_jobs = 1
     if n_jobs == 1:
         for r in rows:
             if cancel():
