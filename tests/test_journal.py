@@ -409,7 +409,7 @@ class JournalMachine(RuleBasedStateMachine):
 
 
 JournalMachine.TestCase.settings = settings(
-    max_examples=60,
+    max_examples=40,
     stateful_step_count=30,
     deadline=None,
     suppress_health_check=[HealthCheck.too_slow],

@@ -142,6 +142,7 @@ class Journal:
         self.path = path
         self._conn = conn
         self._lock = threading.RLock()
+        self._stack_cache: tuple[int, list[int], list[int]] | None = None
 
     # ------------------------------------------------------------------ opening
     @classmethod
@@ -460,9 +461,14 @@ class Journal:
         )
         return Event(int(cur.lastrowid or 0), row_id, decision, new_label, note, time, action, kind)
 
-    @staticmethod
-    def _stacks(conn: sqlite3.Connection) -> tuple[list[int], list[int]]:
-        """Replay the actions' kinds into (undo stack, redo stack) of action ids."""
+    def _stacks(self, conn: sqlite3.Connection) -> tuple[list[int], list[int]]:
+        """Replay the actions' kinds into (undo stack, redo stack) of action ids.
+
+        Cached by the last event's seq, so polling ``can_undo`` costs one indexed query.
+        """
+        last = int(conn.execute("SELECT COALESCE(MAX(seq), 0) FROM events").fetchone()[0])
+        if self._stack_cache is not None and self._stack_cache[0] == last:
+            return list(self._stack_cache[1]), list(self._stack_cache[2])
         undo: list[int] = []
         redo: list[int] = []
         for action, kind in conn.execute(
@@ -477,6 +483,7 @@ class Journal:
             elif kind == "redo" and redo:
                 redo.pop()
                 undo.append(action)
+        self._stack_cache = (last, list(undo), list(redo))
         return undo, redo
 
     def _restore(self, kind: str) -> list[Event]:
