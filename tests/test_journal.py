@@ -13,7 +13,7 @@ from hypothesis import HealthCheck, settings
 from hypothesis import strategies as st
 from hypothesis.stateful import RuleBasedStateMachine, initialize, invariant, precondition, rule
 
-from holdfast.errors import SessionError, UserError
+from holdfast.errors import SessionError
 from holdfast.journal import DECISIONS, Journal
 from holdfast.sessions import default_session_path
 
@@ -127,10 +127,6 @@ def test_open_rejects_damaged_journal(tmp_path: Path) -> None:
     with pytest.raises(SessionError) as info:
         Journal.open(path)
     assert str(path) in str(info.value)
-
-
-def test_session_error_is_a_user_error() -> None:
-    assert issubclass(SessionError, UserError)
 
 
 # ----------------------------------------------------------------------------- recording
