@@ -59,7 +59,7 @@ def _is_numeric(s: pd.Series) -> bool:
 
 
 def label_text(values: pd.Series) -> np.ndarray:
-    """Labels as text, for display and ids (integers stay integers: 1.0 -> '1')."""
+    """Values as text (``str(v)``), for ids; holdfast.export.row_ids uses the same rule."""
     return np.array([str(v) for v in values], dtype=object)
 
 
