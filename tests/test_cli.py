@@ -1,0 +1,118 @@
+"""The CLI: exit codes, one-line messages, and the files `scan` writes."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from holdfast.cli import main
+from holdfast.findings import ROW_COLUMNS
+
+
+@pytest.fixture(autouse=True)
+def _cache(tmp_path, monkeypatch):
+    monkeypatch.setenv("HOLDFAST_CACHE_DIR", str(tmp_path / "cache"))
+
+
+@pytest.fixture
+def data(tmp_path):
+    rng = np.random.default_rng(3)
+    n = 160
+    x1, x2 = rng.normal(size=n), rng.normal(size=n)
+    grade = np.where(x1 + 0.5 * x2 + 0.3 * rng.normal(size=n) > 0, "premium", "processing")
+    frame = pd.DataFrame(
+        {"lot": [f"L{i:04d}" for i in range(n)], "x1": x1, "x2": x2,
+         "block": rng.choice(["B01", "B02"], n), "holdout": np.arange(n) % 8 == 0, "grade": grade}
+    )
+    path = tmp_path / "d.parquet"
+    frame.to_parquet(path)
+    spec = tmp_path / "s.toml"
+    spec.write_text('[data]\nlabel = "grade"\nid = "lot"\nsplit = "holdout"\n[learner]\nC = 1.0\n')
+    return path, spec, frame
+
+
+def test_scan_writes_rows_and_summary(data, tmp_path, capsys):
+    path, spec, frame = data
+    out = tmp_path / "res"
+    assert main(["scan", str(path), "--spec", str(spec), "--out", str(out), "--quiet"]) == 0
+    rows = pd.read_parquet(out / "rows.parquet")
+    summary = json.loads((out / "summary.json").read_text())
+    assert list(rows.columns[: len(ROW_COLUMNS)]) == list(ROW_COLUMNS)
+    assert len(rows) == len(frame) and rows["id"].tolist() == frame["lot"].tolist()
+    held = rows["held_out"].to_numpy()
+    assert held.sum() == 20 and not rows.loc[held, "support"].any()
+    assert (rows.loc[held, "prediction"] == rows.loc[held, "loo_prediction"]).all()
+    train = rows[~held]
+    assert summary["m"] == len(train) and summary["d"] == int(train["support"].sum())
+    assert summary["loo_errors"] == int(train["loo_miss"].sum()) <= summary["d"]
+    assert summary["loo_exact"] is True
+    assert {"support_fraction", "loo_bound", "compression", "test_set"} <= set(summary["bounds"])
+    assert summary["bounds"]["test_set"]["n"] == 20
+    assert summary["learner"]["gamma"] > 0 and summary["learner"]["gamma_spec"] == "scale"
+    printed = capsys.readouterr().out
+    assert "support rows d" in printed and "evidence, not proof" in printed
+
+
+def test_scan_with_label_only(data, tmp_path):
+    path, _, frame = data
+    out = tmp_path / "res2"
+    assert main(["scan", str(path), "--label", "grade", "--out", str(out), "--quiet"]) == 0
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["m"] == len(frame)  # no split column named: every row trains
+    assert summary["spec"]["learner"]["kernel"] == "rbf" and summary["spec"]["learner"]["C"] == 1.0
+
+
+def _run(args):
+    return subprocess.run([sys.executable, "-m", "holdfast.cli", *args], capture_output=True, text=True)
+
+
+def test_missing_file_exit_2_one_line(tmp_path):
+    r = _run(["scan", str(tmp_path / "nope.parquet"), "--label", "grade", "--out", str(tmp_path / "o")])
+    assert r.returncode == 2
+    assert r.stderr.strip().splitlines() == [f"holdfast: error: {tmp_path / 'nope.parquet'}: data file not found"]
+
+
+def test_missing_label_column_exit_2(data, tmp_path):
+    path, _, _ = data
+    r = _run(["scan", str(path), "--label", "grad", "--out", str(tmp_path / "o")])
+    assert r.returncode == 2
+    lines = r.stderr.strip().splitlines()
+    assert len(lines) == 1 and "no column 'grad' (label)" in lines[0] and "did you mean 'grade'" in lines[0]
+
+
+def test_unknown_spec_key_exit_2(data, tmp_path):
+    path, spec, _ = data
+    spec.write_text('[data]\nlabel = "grade"\n[learner]\nkernal = "rbf"\n')
+    r = _run(["scan", str(path), "--spec", str(spec), "--out", str(tmp_path / "o")])
+    assert r.returncode == 2
+    lines = r.stderr.strip().splitlines()
+    assert len(lines) == 1 and "unknown key 'learner.kernal'; did you mean 'kernel'?" in lines[0]
+    assert str(spec) in lines[0]
+
+
+def test_one_class_and_nan_exit_2(tmp_path):
+    frame = pd.DataFrame({"x": [1.0, 2.0, np.nan, 4.0], "y": ["a", "a", "a", "a"]})
+    p = tmp_path / "one.parquet"
+    frame.to_parquet(p)
+    r = _run(["scan", str(p), "--label", "y", "--out", str(tmp_path / "o")])
+    assert r.returncode == 2 and "one class only" in r.stderr and len(r.stderr.strip().splitlines()) == 1
+    frame["y"] = ["a", "b", "a", "b"]
+    frame.to_parquet(p)
+    r = _run(["scan", str(p), "--label", "y", "--out", str(tmp_path / "o")])
+    assert r.returncode == 2 and "'x' has 1 NaN" in r.stderr and "Traceback" not in r.stderr
+
+
+def test_second_scan_comes_from_cache(data, tmp_path, capsys):
+    path, spec, _ = data
+    args = ["scan", str(path), "--spec", str(spec), "--out", str(tmp_path / "r"), "--quiet"]
+    assert main(args) == 0
+    first = pd.read_parquet(tmp_path / "r" / "rows.parquet")
+    capsys.readouterr()
+    assert main(args) == 0
+    assert "from cache" in capsys.readouterr().out
+    pd.testing.assert_frame_equal(first, pd.read_parquet(tmp_path / "r" / "rows.parquet"))
