@@ -147,7 +147,8 @@ def bounds_summary(
             "note": f"delta={delta}",
         },
     }
-    if model.family == "svm":
+    if model.family == "svm" and len(model.classes) == 2:
+        # two-class theorems: margin = y f(x) with y in {-1, +1}, alpha = |dual_coef_|
         xa = B.xi_alpha(model.alpha, model.margin, model.extras["kernel_r2"])
         out["xi_alpha"] = {
             "name": "xi-alpha estimate",
@@ -156,7 +157,11 @@ def bounds_summary(
             "rho": xa.rho,
             "R2": xa.r2,
             "source": "Joachims 2000, Estimating the generalization performance of a SVM efficiently, ICML",
+            "note": "upper bound on the LOO errors; rho=2, R^2 = max K - min K",
         }
+        span = span_summary(model, m)
+        if span is not None:
+            out["span"] = span
     held = ~prepared.train
     if held.any():
         hr = rows[held]
@@ -173,6 +178,35 @@ def bounds_summary(
             "note": f"delta={delta}",
         }
     return out
+
+
+def span_summary(model: FittedModel, m: int) -> dict[str, Any] | None:
+    """The span estimate (Vapnik & Chapelle 2000) from the kernel matrix of the support rows.
+
+    Needs the training kernel (``model.extras["K"]``, present when it was precomputed); None without it
+    or when the kernel matrix of the free support rows is not positive definite.
+    """
+    K = model.extras.get("K")
+    sv = np.flatnonzero(model.support)
+    if K is None or not len(sv):
+        return None
+    try:
+        res = B.span_estimate(
+            K[np.ix_(sv, sv)], model.alpha[sv], model.margin[sv], model.bounded[sv], bounded_rule="span"
+        )
+    except ValueError:
+        return None
+    bounded = model.bounded[sv]
+    conservative = int(res.mask[~bounded].sum() + bounded.sum())
+    return {
+        "name": "span estimate",
+        "value": res.count / m,
+        "count": int(res.count),
+        "count_bounded_as_errors": conservative,
+        "source": "Vapnik & Chapelle 2000, Bounds on error expectation for support vector machines, "
+        "Neural Computation 12(9)",
+        "note": "estimate, not a bound: assumes the support set stays the same without the row",
+    }
 
 
 def build_findings(
@@ -225,4 +259,7 @@ def build_findings(
         n_h = int(held.sum())
         e_h = int(rows.loc[held, "loo_miss"].sum())
         summary["held_out"] = {"n": n_h, "errors": e_h, "error_rate": e_h / n_h}
+    from holdfast.insight.explain import explain
+
+    summary["explanation"] = explain(rows, prepared.X[tr], model.params)
     return Findings(rows=rows, summary=summary, classes=[str(c) for c in prepared.classes])
