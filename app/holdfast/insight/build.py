@@ -129,13 +129,15 @@ def bounds_summary(
         "loo_bound": {
             "name": "LOO bound",
             "value": B.loo_bound(d, loo_miss_outside, m),
-            "source": "Vapnik 1995: (d + LOO misses outside the support set) / m",
+            "source": "Vapnik 1995, The Nature of Statistical Learning Theory: "
+            "(d + LOO misses outside the support set) / m",
             "misses_outside": loo_miss_outside,
         },
         "loo_error": {
             "name": "exact LOO error",
             "value": float((loo.loo_code != y).mean()),
-            "source": "leave-one-out refits of the support rows (exact)",
+            "source": "Lachenbruch & Mickey 1968, Estimation of error rates in discriminant analysis, "
+            "Technometrics 10 (leave-one-out); exact refits of the support rows",
         },
         "compression": {
             "name": "compression bound",
