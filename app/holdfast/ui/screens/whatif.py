@@ -1,0 +1,123 @@
+"""The what-if screen: the bounds and LOO errors before and after the decisions, and the rows that change.
+
+It shows a ``holdfast.insight.whatif.WhatIf`` result: ``comparison`` rows ``(name, before, after)``,
+``changed`` (id, position, label_before, label_after, status_before, status_after), and the counts of
+excluded and relabelled rows.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any, ClassVar
+
+import pandas as pd
+from rich.table import Table
+from rich.text import Text
+from textual.app import ComposeResult
+from textual.binding import Binding, BindingType
+from textual.containers import Vertical
+from textual.screen import Screen
+from textual.widgets import Footer, Static
+
+from holdfast.ui.textsafe import safe_text
+from holdfast.ui.widgets.row_table import ColumnSpec, RowTable
+
+CHANGED_COLUMNS: tuple[ColumnSpec, ...] = (
+    ColumnSpec("id", "id", None, "left"),
+    ColumnSpec("label_before", "label before", None, "left"),
+    ColumnSpec("label_after", "label after", None, "left"),
+    ColumnSpec("status_before", "before", None, "left"),
+    ColumnSpec("status_after", "after", None, "left"),
+)
+
+
+def _fmt(value: Any) -> str:
+    """A number as the comparison shows it: counts as integers, rates with four decimals."""
+    if value is None:
+        return ""
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, int):
+        return f"{value:,}"
+    if isinstance(value, float):
+        if math.isnan(value):
+            return ""
+        return f"{value:,.0f}" if value.is_integer() and abs(value) >= 1 else f"{value:.4f}"
+    return safe_text(value)
+
+
+def _change(before: Any, after: Any) -> str:
+    try:
+        b, a = float(before), float(after)
+    except (TypeError, ValueError):
+        return ""
+    if math.isnan(a) or math.isnan(b):
+        return ""
+    diff = a - b
+    if diff == 0:
+        return "="
+    return f"{diff:+,.0f}" if float(diff).is_integer() and abs(diff) >= 1 else f"{diff:+.4f}"
+
+
+def comparison_table(rows: list[tuple[str, Any, Any]]) -> Table:
+    """A table of ``(name, before, after)`` with the change."""
+    table = Table(expand=False, show_edge=False, pad_edge=False)
+    table.add_column("", no_wrap=True)
+    table.add_column("before", justify="right", no_wrap=True)
+    table.add_column("after", justify="right", no_wrap=True)
+    table.add_column("change", justify="right", no_wrap=True)
+    for name, before, after in rows:
+        table.add_row(
+            Text(safe_text(name)), Text(_fmt(before)), Text(_fmt(after)), Text(_change(before, after))
+        )
+    return table
+
+
+class WhatIfScreen(Screen[None]):
+    """Before/after comparison of a what-if refit. Escape or q goes back to the rows."""
+
+    BINDINGS: ClassVar[list[BindingType]] = [
+        Binding("escape,q", "close", "Back to the rows", id="whatif.close"),
+    ]
+
+    def __init__(self, result: Any) -> None:
+        super().__init__(id="what-if")
+        self.result = result
+
+    def compose(self) -> ComposeResult:
+        r = self.result
+        excluded = int(getattr(r, "excluded", 0) or 0)
+        relabelled = int(getattr(r, "relabelled", 0) or 0)
+        changed = getattr(r, "changed", None)
+        changed = (
+            changed
+            if isinstance(changed, pd.DataFrame)
+            else pd.DataFrame(columns=[c.key for c in CHANGED_COLUMNS])
+        )
+        with Vertical(id="what-if-body"):
+            yield Static(
+                Text(
+                    f"What-if: the model refitted with your decisions applied "
+                    f"({relabelled:,} relabelled, {excluded:,} excluded)"
+                ),
+                classes="help-title",
+            )
+            yield Static(comparison_table(list(getattr(r, "comparison", []) or [])), id="what-if-comparison")
+            yield Static(Text(f"Rows whose status changes: {len(changed):,}"), classes="help-heading")
+            columns = [c for c in CHANGED_COLUMNS if c.key in changed.columns]
+            yield RowTable(
+                changed.reset_index(drop=True),
+                columns,
+                id="what-if-changed",
+                empty_text="No row changes status.",
+            )
+            yield Static(
+                "Nothing here is saved or exported: it is a preview. escape goes back.", classes="dialog-hint"
+            )
+        yield Footer()
+
+    def on_mount(self) -> None:
+        self.query_one("#what-if-changed", RowTable).focus()
+
+    def action_close(self) -> None:
+        self.dismiss(None)
