@@ -38,6 +38,8 @@ _AUTO_WIDTH_MAX = 40
 _AUTO_WIDTH_SAMPLE = 256
 _ELLIPSIS = "…"
 _SORT_MARK = {False: " ▲", True: " ▼"}
+_TEXT_KEY_MAX = 256  # longest text sorted as a numpy string array
+_ORDER_CACHE = 8  # sort orders kept, so that toggling direction or going back is instant
 
 
 @dataclass(frozen=True)
@@ -170,7 +172,12 @@ def _as_array(series: pd.Series) -> tuple[np.ndarray, Kind]:
 
 
 def _sort_key(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Return ``(missing, key)``: a missing-value mask and a numeric key ordered like the values."""
+    """Return ``(missing, key)``: a missing-value mask and an array ordered like the values.
+
+    Booleans, numbers and times are their own key. Text and other objects become dense ranks:
+    ``pandas.factorize`` finds the distinct values by hashing, only those are sorted, and the ranks
+    are small ints, which numpy sorts fast.
+    """
     kind = values.dtype.kind
     if kind == "b":
         return np.zeros(values.shape, dtype=bool), values.astype(np.int8)
@@ -182,14 +189,28 @@ def _sort_key(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     if kind in "mM":
         missing = np.isnat(values)
         return missing, values.view(np.int64)
+    codes, uniques = pd.factorize(values, use_na_sentinel=True)  # hashing: no sort yet
+    missing = codes < 0
+    if len(uniques) == 0:
+        return missing, np.zeros(values.shape, dtype=np.int8)
+    rank = np.empty(len(uniques), dtype=np.int32 if len(uniques) >= 2**15 else np.int16)
+    rank[_text_order(np.asarray(uniques, dtype=object))] = np.arange(len(uniques))
+    return missing, rank[codes]
+
+
+def _text_order(uniques: np.ndarray) -> np.ndarray:
+    """Order of distinct values: text by code point (as Python compares ``str``), others by ``<``.
+
+    Short text is compared as a numpy string array (fast; numpy ignores trailing NUL characters).
+    """
+    if pd.api.types.infer_dtype(uniques, skipna=False) == "string":
+        width = max(map(len, uniques), default=0)
+        if width <= _TEXT_KEY_MAX:
+            return np.argsort(uniques.astype(f"U{max(1, width)}"), kind="stable")
     try:
-        codes, _ = pd.factorize(values, sort=True, use_na_sentinel=True)
+        return np.argsort(uniques, kind="stable")
     except TypeError:  # mixed types that do not compare: order by their text
-        missing = pd.isna(values)
-        as_text = np.where(missing, None, values.astype(str)).astype(object)
-        codes, _ = pd.factorize(as_text, sort=True, use_na_sentinel=True)
-    codes = np.asarray(codes, dtype=np.int64)
-    return codes < 0, codes
+        return np.argsort(uniques.astype(str), kind="stable")
 
 
 def _ordered_positions(missing: np.ndarray, key: np.ndarray, descending: bool) -> np.ndarray:
@@ -383,7 +404,8 @@ class RowTable(ScrollView, can_focus=True):
         self._sort_key: str | None = None
         self._sort_descending = False
         self._sort_keys: dict[str, tuple[np.ndarray, np.ndarray]] = {}
-        self._id_index: dict[str, int] | None = None
+        self._orders: LRUCache[tuple[str, bool], np.ndarray] = LRUCache(_ORDER_CACHE)
+        self._id_text: np.ndarray | None = None
         self._strips: LRUCache[tuple[int, bool], Strip] = LRUCache(2048)
         self._header: Strip | None = None
         self._styles: dict[str, Style] = {}
@@ -425,7 +447,8 @@ class RowTable(ScrollView, can_focus=True):
         self._sort_key = None
         self._sort_descending = False
         self._sort_keys = {}
-        self._id_index = None
+        self._orders.clear()
+        self._id_text = None
         self._cursor = 0
         self._clear_render_cache()
         self._set_view(np.arange(self._n, dtype=np.intp), keep_position=False)
@@ -476,8 +499,10 @@ class RowTable(ScrollView, can_focus=True):
                     col.values = array
         array[pos] = values
         self._sort_keys.pop(column, None)
+        self._orders.discard((column, False))
+        self._orders.discard((column, True))
         if column == "id":
-            self._id_index = None
+            self._id_text = None
         for p in pos.tolist():
             self._strips.discard((p, False))
             self._strips.discard((p, True))
@@ -515,9 +540,13 @@ class RowTable(ScrollView, can_focus=True):
                 raise KeyError(f"RowTable: cannot sort by {key!r}: no such column")
             if descending is None:
                 descending = not self._sort_descending if key == self._sort_key else False
-            if key not in self._sort_keys:
-                self._sort_keys[key] = _sort_key(self._arrays[key])
-            self._order = _ordered_positions(*self._sort_keys[key], descending)
+            order = self._orders.get((key, descending))
+            if order is None:
+                if key not in self._sort_keys:
+                    self._sort_keys[key] = _sort_key(self._arrays[key])
+                order = _ordered_positions(*self._sort_keys[key], descending)
+                self._orders[(key, descending)] = order
+            self._order = order
             self._sort_key = key
             self._sort_descending = bool(descending)
         self._header = None
@@ -606,17 +635,23 @@ class RowTable(ScrollView, can_focus=True):
     def jump_to_id(self, row_id: Any) -> bool:
         """Put the cursor on the row whose ``id`` column equals ``str(row_id)``.
 
-        Returns ``False`` (cursor unchanged) when no row has that id or the row is filtered out.
+        With a repeated id, the first such row in display order. Returns ``False`` (cursor unchanged)
+        when no row in the view has that id. Costs one vectorised comparison (a few ms at 100k rows).
         """
-        if "id" not in self._arrays:
+        ids = self._arrays.get("id")
+        if ids is None:
             return False
-        if self._id_index is None:
-            index: dict[str, int] = {}
-            for p, value in enumerate(self._arrays["id"].tolist()):
-                index.setdefault(str(value), p)
-            self._id_index = index
-        position = self._id_index.get(str(row_id))
-        return position is not None and self.move_to_position(position)
+        if ids.dtype.kind != "O":  # ids that are not text: compare their text form
+            if self._id_text is None:
+                self._id_text = ids.astype(str)
+            ids = self._id_text
+        hits = np.flatnonzero(ids == str(row_id))
+        shown = self._where[hits]
+        shown = shown[shown >= 0]
+        if shown.size == 0:
+            return False
+        self.move_cursor(int(shown.min()))
+        return True
 
     @property
     def _page_rows(self) -> int:
