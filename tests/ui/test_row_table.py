@@ -272,6 +272,28 @@ async def test_jump_to_id() -> None:
         assert table.cursor_row == 1500
 
 
+async def test_jump_to_repeated_and_numeric_ids() -> None:
+    frame = findings_frame(100)
+    frame.loc[[10, 60], "id"] = "crate-dup"
+    app = Host(frame)
+    async with app.run_test(size=SIZE):
+        table = app.query_one(RowTable)
+        assert table.jump_to_id("crate-dup") is True
+        assert table.cursor_row == 10  # first in display order
+        table.sort_by("rank", descending=True)
+        assert table.jump_to_id("crate-dup") is True
+        assert table.cursor_row == 60
+        mask = np.ones(100, dtype=bool)
+        mask[60] = False
+        table.set_filter(mask)
+        assert table.jump_to_id("crate-dup") is True
+        assert table.cursor_row == 10
+        table.set_data(frame.assign(id=np.arange(100) * 7), ["id", "label"])
+        assert table.jump_to_id(21) is True
+        assert table.cursor_row == 3
+        assert table.jump_to_id("22") is False
+
+
 # ---------------------------------------------------------------------------------------------- updates
 
 
