@@ -88,10 +88,22 @@ def cmd_scan(args: argparse.Namespace) -> int:
     out = Path(args.out)
     if out.exists() and not out.is_dir():
         raise UserError(f"{out}: --out must be a folder")
+    decisions = None
+    if getattr(args, "decisions", None):
+        from holdfast.export import read_decisions
+
+        decisions = read_decisions(args.decisions)  # read first: a bad file fails before the scan
     scan = run_scan(args.data, spec, progress=None if args.quiet else ProgressBar(), use_cache=False if args.no_cache else None)
     rows_path, summary_path = scan.findings.write(out)
     print(f"{args.data}: {'from cache; ' if scan.from_cache else ''}wrote {rows_path} and {summary_path}")
     print(summary_text(scan.findings.summary))
+    if decisions is not None:
+        from holdfast.insight.whatif import what_if, write_whatif
+
+        result = what_if(scan, decisions, progress=None if args.quiet else ProgressBar("what-if refits"))
+        json_path, changed_path = write_whatif(result, out)
+        print(f"{args.decisions}: wrote {json_path} and {changed_path}")
+        print(result.text())
     print(CAUTION)
     return 0
 
@@ -151,6 +163,11 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("--out", default="results", help="output folder (default: results/)")
     sp.add_argument("--no-cache", action="store_true", help="neither reuse nor write the result cache")
     sp.add_argument("--quiet", action="store_true", help="no progress bar")
+    sp.add_argument(
+        "--decisions",
+        help="decisions file (.parquet or .csv, as exported): also refit with its relabels and exclusions "
+        "applied; writes whatif.json and whatif_rows.parquet",
+    )
     sp.set_defaults(func=cmd_scan)
 
     sp = sub.add_parser("open", help="open the inspector (terminal UI) on a data set")
