@@ -1,20 +1,22 @@
 """Benchmark: RowTable at 100,000 rows against the same operations at 1,000 rows, in one run.
 
-Run from the repository root::
+Run from the repository root (the script puts ``app/`` on the import path itself)::
 
-    PYTHONPATH=app python tests/bench/bench_row_table.py [--rows 100000] [--baseline-rows 1000]
-                                                         [--repeat 3] [--size 120x40] [--strict]
+    python tests/bench/bench_row_table.py [--rows 100000] [--baseline-rows 1000] [--repeat 3]
+                                          [--size 120x40] [--gc-freeze] [--strict]
 
-Prints, for each measured operation, milliseconds at both sizes and their ratio (a ratio near 1 means
-the cost does not grow with the row count), then PASS/FAIL against the targets: first paint <= 1 s and
-<= 50 ms per key at the large size. Exits 0 whatever the timings unless ``--strict`` is given.
-How it measures is described in tests/bench/README.md.
+Prints, for each operation, wall-clock and CPU milliseconds at both sizes and their ratio (near 1 means
+the cost does not grow with the row count), then PASS/FAIL against the targets at the large size:
+first paint <= 1 s, <= 50 ms per key. The verdict that counts uses CPU time (the machine is shared, so
+wall time also measures the neighbours); the wall-clock verdict is printed beside it. Exits 0 whatever
+the timings unless ``--strict`` is given. The method is described in tests/bench/README.md.
 """
 
 from __future__ import annotations
 
 import argparse
 import asyncio
+import gc
 import os
 import statistics
 import sys
@@ -210,6 +212,12 @@ async def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--repeat", type=int, default=3, help="rounds per size (medians over all rounds)")
     parser.add_argument("--size", default="120x40", help="terminal size WIDTHxHEIGHT")
     parser.add_argument("--strict", action="store_true", help="exit 1 if a target is missed")
+    parser.add_argument(
+        "--gc-freeze",
+        action="store_true",
+        help="call gc.freeze() after the warm-up, so that full garbage collections (which walk every\n"
+        "object the imports created) stop adding ~50 ms pauses to random operations",
+    )
     args = parser.parse_args(argv)
     width, height = (int(v) for v in args.size.lower().split("x"))
     size = (width, height)
@@ -220,6 +228,9 @@ async def main(argv: list[str] | None = None) -> int:
     # Warm-up (imports, CSS parsing, numpy first calls), not reported.
     await first_paint(findings_frame(100), size)
     await key_costs(findings_frame(100), size)
+    if args.gc_freeze:
+        gc.collect()
+        gc.freeze()
 
     results: dict[int, dict[str, Sample]] = {args.rows: {}, args.baseline_rows: {}}
     lines_drawn = 0
@@ -237,7 +248,8 @@ async def main(argv: list[str] | None = None) -> int:
     failed = report(results[args.rows], results[args.baseline_rows], args)
     print(f"\nfirst paint drew {lines_drawn} screen lines (the table's height) at {args.rows:,} rows")
     load = " ".join(f"{x:.2f}" for x in os.getloadavg())
-    print(f"{args.repeat} rounds on {os.cpu_count()} cores; load average at the end: {load}")
+    frozen = "gc frozen after warm-up" if args.gc_freeze else "gc as usual"
+    print(f"{args.repeat} rounds on {os.cpu_count()} cores, {frozen}; load average at the end: {load}")
     print("targets (CPU medians):", "all met" if not failed else "MISSED (see FAIL above)")
     return 1 if (failed and args.strict) else 0
 
@@ -262,11 +274,14 @@ def report(big: dict[str, Sample], base: dict[str, Sample], args: argparse.Names
             f"{cpu_big:>10.1f} {cpu_base:>7.1f} {cpu_big / cpu_base:>6.2f} {'<= ' + format(target, '.0f'):>8}"
             f"  {'PASS' if cpu_ok else 'FAIL'} {'PASS' if wall_ok else 'FAIL'}"
         )
-    spread_head = f"{'wall p95 large':>15} {'base':>7} {'wall max large':>15} {'base':>7}"
-    print(f"\n{'operation':<22} {'samples':>8} {spread_head}")
+    spread_head = f"{'wall p95':>9} {'base':>7} {'wall max':>9} {'base':>7} {'cpu max':>8} {'base':>7}"
+    print(f"\n{'operation':<22} {'samples':>8} {spread_head}   (large, base)")
     for name, b in big.items():
         a = base[name]
-        spread = f"{b.p95():>15.1f} {a.p95():>7.1f} {max(b.wall):>15.1f} {max(a.wall):>7.1f}"
+        spread = (
+            f"{b.p95():>9.1f} {a.p95():>7.1f} {max(b.wall):>9.1f} {max(a.wall):>7.1f}"
+            f" {max(b.cpu):>8.1f} {max(a.cpu):>7.1f}"
+        )
         print(f"{name:<22} {len(b.wall):>8} {spread}")
     return failed
 
