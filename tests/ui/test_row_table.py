@@ -328,6 +328,32 @@ async def test_update_values_redraws_only_the_changed_line() -> None:
         assert "exclude" in screen_lines(app)[line_with(app, "crate-004000")]
 
 
+async def test_update_values_into_an_all_missing_float_column_shows_text() -> None:
+    frame = findings_frame(20).assign(decision=np.nan)
+    app = Host(frame)
+    async with app.run_test(size=SIZE) as pilot:
+        table = app.query_one(RowTable)
+        table.update_values("decision", [0, 1], ["confirm", "defer"])
+        await pilot.pause()
+        assert "confirm" in screen_lines(app)[1] and "defer" in screen_lines(app)[2]
+        table.sort_by("decision")
+        assert table.view_positions()[:2].tolist() == [0, 1]  # NaN (no decision) last
+
+
+async def test_header_scrolls_sideways_with_the_rows() -> None:
+    frame = findings_frame(50)
+    app = Host(frame, default_columns(frame))  # wider than the 100-cell terminal
+    async with app.run_test(size=SIZE) as pilot:
+        table = app.query_one(RowTable)
+        before = screen_lines(app)
+        await pilot.press("right", "right", "right")
+        dx = table.scroll_offset.x
+        assert dx > 0
+        after = screen_lines(app)
+        for y in (0, 1, 2):  # header and rows move together
+            assert after[y][:60] == before[y][dx : dx + 60]
+
+
 # ---------------------------------------------------------------------------------------------- literal text
 
 

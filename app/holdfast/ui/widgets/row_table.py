@@ -79,6 +79,7 @@ class _Column:
     formatter: Formatter
     values: np.ndarray
     kind: Kind
+    custom_formatter: bool
 
 
 def format_bool(value: Any) -> str:
@@ -465,7 +466,19 @@ class RowTable(ScrollView, can_focus=True):
             sample = values[::step][:_AUTO_WIDTH_SAMPLE]
             widest = max((cell_len(safe_text(formatter(v))) for v in sample), default=0)
             width = min(_AUTO_WIDTH_MAX, max(widest, cell_len(title) + 2))
-        return _Column(spec.key, title, max(1, int(width)), alignment, formatter, values, kind)
+        width = max(1, int(width))
+        return _Column(spec.key, title, width, alignment, formatter, values, kind, spec.formatter is not None)
+
+    def _as_text_column(self, column: str) -> np.ndarray:
+        """Turn ``column`` into an object array shown as text (so any value can be stored in it)."""
+        array = self._arrays[column] = self._arrays[column].astype(object)
+        self._kinds[column] = "text"
+        for col in self._columns:
+            if col.key == column:
+                col.values, col.kind = array, "text"
+                if not col.custom_formatter:
+                    col.formatter = format_text
+        return array
 
     @property
     def row_count(self) -> int:
@@ -485,18 +498,15 @@ class RowTable(ScrollView, can_focus=True):
         """Set ``column`` at data rows ``positions`` to ``values`` and redraw only those rows if visible.
 
         The view order is not changed, even when sorted or filtered by this column: call ``sort_by`` or
-        ``set_filter`` again to re-order. Meant for the decision column (text); a numeric column keeps
-        its dtype, so its values must fit it.
+        ``set_filter`` again to re-order. Meant for the decision column. A column whose dtype cannot
+        hold ``values`` (say text into an all-NaN float column) becomes a text column.
         """
         pos = np.asarray(positions, dtype=np.intp).reshape(-1)
         if pos.size == 0:
             return
         array = self._arrays[column]
-        if array.dtype.kind in "US":
-            array = self._arrays[column] = array.astype(object)
-            for col in self._columns:
-                if col.key == column:
-                    col.values = array
+        if array.dtype != object and not np.can_cast(np.asarray(values).dtype, array.dtype, "same_kind"):
+            array = self._as_text_column(column)
         array[pos] = values
         self._sort_keys.pop(column, None)
         self._orders.discard((column, False))
