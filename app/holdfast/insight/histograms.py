@@ -80,6 +80,18 @@ def _order(names: np.ndarray, by: Any, groups: Sequence[Any] | None) -> list[str
     return order
 
 
+def _edges(lo: float, hi: float, bins: int) -> np.ndarray:
+    """Equal-width edges over ``[lo, hi]``; numpy's rule (widen by 0.5 each side) for ``lo == hi``, and
+    wide enough to give ``bins`` distinct edges at any magnitude."""
+    if lo == hi:
+        lo, hi = lo - 0.5, hi + 0.5
+    min_span = 4.0 * bins * float(np.spacing(max(abs(lo), abs(hi))))
+    if hi - lo < min_span:
+        mid = lo / 2.0 + hi / 2.0
+        lo, hi = mid - min_span / 2.0, mid + min_span / 2.0
+    return np.histogram_bin_edges(np.empty(0), bins=bins, range=(lo, hi))
+
+
 def histogram(
     values: Any,
     *,
@@ -101,7 +113,8 @@ def histogram(
         named by ``str`` of their value; missing group values form the group ``"(missing)"``.
     range
         ``(low, high)`` of the bins; values outside are not counted (and not reported as missing). Default:
-        the smallest and largest finite value (widened by 0.5 each side when they are equal, as numpy does).
+        the smallest and largest finite value (widened by 0.5 each side when they are equal, as numpy does,
+        and further when the values are too large for ``bins`` distinct edges in that span).
     groups
         Optional group order (and groups to include even when empty). Default: the categories of a
         categorical ``by``, else the sorted group names. Values whose group is not listed are not counted.
@@ -125,7 +138,7 @@ def histogram(
         lo, hi = float(range[0]), float(range[1])
         if not (np.isfinite(lo) and np.isfinite(hi)) or hi < lo:
             raise ValueError(f"histogram: range must be finite with low <= high, got {range}")
-    edges = np.histogram_bin_edges(np.empty(0), bins=int(bins), range=(lo, hi))
+    edges = _edges(lo, hi, int(bins))
     if by is None:
         names = np.full(len(v), ALL, dtype=object)
         order = [ALL] if groups is None else [str(g) for g in groups]
