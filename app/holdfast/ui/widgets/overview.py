@@ -1,0 +1,277 @@
+"""OverviewPanel: what the scan found, at a glance.
+
+Data set and learner, the support rows, training and exact LOO errors, every bound with its name and
+published source, the class balance, the margin histogram by class and, when the summary carries one,
+the explanation of the support set with its hints. The panel lays its blocks side by side when it is
+wide and stacks them when it is narrow; it computes nothing beyond formatting.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from pathlib import PurePath
+from typing import Any, ClassVar
+
+from rich.console import Console, ConsoleOptions, Group, RenderableType, RenderResult
+from rich.padding import Padding
+from rich.style import Style
+from rich.table import Table
+from rich.text import Text
+from textual.app import ComposeResult
+from textual.containers import VerticalScroll
+from textual.widgets import Static
+
+from holdfast.insight.histograms import Histogram
+from holdfast.ui.textsafe import safe_text
+from holdfast.ui.widgets.histogram import HistogramBars
+from holdfast.ui.widgets.row_detail import cell, fmt_number, grid
+
+#: bounds in the order an analyst reads them; others follow in the summary's order
+BOUND_ORDER = ("loo_error", "support_fraction", "loo_bound", "xi_alpha", "span", "compression", "test_set")
+#: width of one block when blocks stand side by side
+BLOCK_WIDTH = 36
+SHARE_BAR = 10
+
+
+def _count(value: Any) -> str:
+    try:
+        return f"{int(value):,}"
+    except (TypeError, ValueError):
+        return "–"
+
+
+def _param(value: Any) -> str:
+    if isinstance(value, bool):
+        return str(value).lower()
+    if isinstance(value, float):
+        return fmt_number(value, ".4g")
+    if isinstance(value, Mapping):
+        return "{" + ", ".join(f"{safe_text(k)}: {_param(v)}" for k, v in value.items()) + "}"
+    return safe_text(value)
+
+
+class Columns:
+    """Blocks side by side when there is room for ``block_width`` cells each, else stacked."""
+
+    def __init__(self, blocks: Sequence[Sequence[RenderableType]], block_width: int = BLOCK_WIDTH) -> None:
+        self.blocks = [list(b) for b in blocks if b]
+        self.block_width = block_width
+
+    def __rich_console__(self, console: Console, options: ConsoleOptions) -> RenderResult:
+        n = len(self.blocks)
+        if n == 0:
+            return
+        across = max(1, min(n, options.max_width // (self.block_width + 2)))
+        if across == 1:
+            for i, block in enumerate(self.blocks):
+                if i:
+                    yield Text("")
+                yield from block
+            return
+        table = Table.grid(padding=(0, 2), expand=True)
+        for _ in range(across):
+            table.add_column(ratio=1, vertical="top")
+        for start in range(0, n, across):
+            row = [Group(*b) for b in self.blocks[start : start + across]]
+            table.add_row(*row, *([""] * (across - len(row))))
+        yield table
+
+
+class OverviewPanel(VerticalScroll):
+    """Scrollable overview of a scan; call :meth:`show` with the summary dict and the margin histogram."""
+
+    COMPONENT_CLASSES: ClassVar[set[str]] = {
+        "overview--heading",
+        "overview--muted",
+        "overview--value",
+        "overview--warning",
+        "overview--bar",
+    }
+    """
+    | Class | Styles |
+    | :- | :- |
+    | `overview--heading` | block headings |
+    | `overview--muted` | titles, sources, notes |
+    | `overview--value` | the key numbers |
+    | `overview--warning` | LOO errors and the explanation's hints |
+    | `overview--bar` | class-balance bars and the margin histogram |
+    """
+
+    DEFAULT_CSS = """
+    OverviewPanel {
+        height: auto;
+        overflow-x: hidden;
+        & > .overview--heading { text-style: bold; }
+        & > .overview--muted { color: $text-muted; }
+        & > .overview--value { text-style: bold; }
+        & > .overview--warning { color: $warning; }
+        & > .overview--bar { color: $accent; }
+        & > Static { width: 1fr; }
+    }
+    """
+
+    def __init__(self, *, name: str | None = None, id: str | None = None, classes: str | None = None) -> None:
+        super().__init__(name=name, id=id, classes=classes)
+        self.summary: dict[str, Any] | None = None
+        self.margin_hist: Histogram | None = None
+
+    def compose(self) -> ComposeResult:
+        yield Static("", classes="overview-body", markup=False)
+
+    def _s(self, name: str) -> Style:
+        return self.get_component_rich_style(f"overview--{name}", partial=True)
+
+    def show(self, summary: dict[str, Any] | None, margin_hist: Histogram | None = None) -> None:
+        """Draw ``summary`` (the findings summary dict) and ``margin_hist`` (margins by class)."""
+        self.summary = summary
+        self.margin_hist = margin_hist
+        body = self.query_one(".overview-body", Static)
+        if not summary:
+            body.update(Text("No scan yet.", style=self._s("muted")))
+            return
+        blocks = [self._data_block(summary), self._support_block(summary), self._bounds_block(summary)]
+        blocks.append(self._classes_block(summary, margin_hist))
+        parts: list[RenderableType] = [Columns(blocks)]
+        explanation = summary.get("explanation")
+        if explanation:
+            parts += [Text(""), *self._explanation_block(explanation)]
+        body.update(Group(*parts))
+
+    # -- blocks ---------------------------------------------------------------------------------------
+
+    def _heading(self, text: str) -> Text:
+        return Text(text, style=self._s("heading"))
+
+    def _pair(self, title: str, value: str, note: str = "", style: Style | str = "") -> Text:
+        line = Text()
+        line.append(f"{title} ", style=self._s("muted"))
+        line.append(value, style=style or self._s("value"))
+        if note:
+            line.append(f"  {note}", style=self._s("muted"))
+        return line
+
+    def _data_block(self, s: Mapping[str, Any]) -> list[RenderableType]:
+        data = s.get("data", {}) or {}
+        spec_data = (s.get("spec", {}) or {}).get("data", {}) or {}
+        out: list[RenderableType] = [self._heading("Data and learner")]
+        path = data.get("path")
+        if path:
+            out.append(self._pair("data", safe_text(PurePath(str(path)).name)))
+        held = (s.get("held_out") or {}).get("n")
+        note = f"{_count(held)} held out" if held else ""
+        out.append(self._pair("rows", _count(data.get("rows_total", s.get("m"))), note))
+        if spec_data.get("label"):
+            out.append(self._pair("label", safe_text(spec_data["label"])))
+        features = [safe_text(f) for f in data.get("features", []) or []]
+        if features:
+            line = self._pair("features", f"{len(features):,}")
+            line.append("  " + ", ".join(features), style=self._s("muted"))
+            out.append(line)
+        params = dict(s.get("learner", {}) or {})
+        if params:
+            family = params.pop("family", None)
+            line = Text()
+            line.append("learner ", style=self._s("muted"))
+            line.append(safe_text(family or "?"), style=self._s("value"))
+            for key, value in params.items():
+                if value is None or isinstance(value, list | tuple):
+                    continue
+                line.append(f"  {safe_text(key)}=", style=self._s("muted"))
+                line.append(_param(value))
+            out.append(line)
+        return out
+
+    def _support_block(self, s: Mapping[str, Any]) -> list[RenderableType]:
+        m, d = s.get("m"), s.get("d")
+        out: list[RenderableType] = [self._heading("Support rows and errors")]
+        out.append(self._pair("m", _count(m), "training rows"))
+        share = f"{int(d) / int(m):.1%} of m" if m and d is not None else ""
+        out.append(self._pair("support rows d", _count(d), share))
+        out.append(self._pair("bounded", _count(s.get("bounded")), f"free {_count(s.get('free'))}"))
+        if "essential" in s:
+            out.append(self._pair("essential", _count(s.get("essential"))))
+        out.append(self._pair("training errors", _count(s.get("training_errors"))))
+        kind = "exact" if s.get("loo_exact", True) else "approximate"
+        out.append(self._pair(f"LOO errors ({kind})", _count(s.get("loo_errors")), style=self._s("warning")))
+        held = s.get("held_out")
+        if held:
+            rate = held.get("error_rate")
+            note = f"{rate:.1%}" if isinstance(rate, int | float) else ""
+            errors = f"{_count(held.get('errors'))} of {_count(held.get('n'))}"
+            out.append(self._pair("held-out errors", errors, note))
+        flags = s.get("flags") or {}
+        if flags:
+            raised = [(k, v) for k, v in flags.items() if v]
+            line = Text("flags ", style=self._s("muted"))
+            line.append(", ".join(f"{safe_text(k)} {int(v):,}" for k, v in raised) if raised else "none")
+            out.append(line)
+        return out
+
+    def _bounds_block(self, s: Mapping[str, Any]) -> list[RenderableType]:
+        bounds = s.get("bounds") or {}
+        out: list[RenderableType] = [self._heading("Bounds and estimates")]
+        keys = [k for k in BOUND_ORDER if k in bounds] + [k for k in bounds if k not in BOUND_ORDER]
+        for key in keys:
+            item = bounds[key]
+            if not isinstance(item, Mapping):
+                continue
+            value = item.get("value")
+            note = safe_text(item.get("note", "")) if item.get("note") else ""
+            out.append(self._pair(safe_text(item.get("name", key)), fmt_number(value, ".4f"), note))
+            if item.get("source"):
+                out.append(Padding(Text(safe_text(item["source"]), style=self._s("muted")), (0, 0, 0, 2)))
+        if len(out) == 1:
+            out.append(Text("none", style=self._s("muted")))
+        return out
+
+    def _classes_block(self, s: Mapping[str, Any], hist: Histogram | None) -> list[RenderableType]:
+        counts = s.get("class_counts") or {}
+        out: list[RenderableType] = [self._heading("Classes")]
+        total = sum(int(v) for v in counts.values()) or 1
+        table = grid()
+        table.add_column(no_wrap=True, overflow="ellipsis", max_width=16)
+        table.add_column(justify="right", no_wrap=True)
+        table.add_column(justify="right", no_wrap=True)
+        table.add_column(no_wrap=True)
+        for label, n in counts.items():
+            share = int(n) / total
+            bar = "█" * max(1 if n else 0, round(share * SHARE_BAR))
+            table.add_row(
+                cell(safe_text(label)),
+                cell(_count(n)),
+                cell(f"{share:.0%}", self._s("muted")),
+                cell(bar, self._s("bar")),
+            )
+        out.append(table)
+        if hist is not None and hist.groups:
+            heading = self._heading("Margin by class")
+            heading.append("  below 0: the model disagrees with the label", style=self._s("muted"))
+            bars = HistogramBars(hist, bar_style=self._s("bar"), axis_style=self._s("muted"), marker=0.0)
+            out += [Text(""), heading, bars]
+        return out
+
+    def _explanation_block(self, e: Any) -> list[RenderableType]:
+        out: list[RenderableType] = [self._heading("Why the support set is this size")]
+        if not isinstance(e, Mapping):
+            return [*out, Text(safe_text(e))]
+        comp = e.get("composition") or {}
+        if comp:
+            line = Text()
+            line.append(f"d {_count(comp.get('d', e.get('d')))} = ", style=self._s("muted"))
+            line.append(f"{_count(comp.get('bounded_misclassified'))} bounded and misclassified + ")
+            line.append(f"{_count(comp.get('bounded_correct'))} bounded but correct + ")
+            line.append(f"{_count(comp.get('free'))} free")
+            out.append(line)
+        flagged = e.get("flagged") or {}
+        if "support_rows_flagged" in flagged:
+            share = flagged.get("share_of_d")
+            note = f" ({share:.0%} of d)" if isinstance(share, int | float) else ""
+            n_flagged = _count(flagged["support_rows_flagged"])
+            out.append(Text(f"{n_flagged} support rows carry a label flag{note}"))
+        for hint in e.get("hints") or []:
+            text = hint.get("text", "") if isinstance(hint, Mapping) else hint
+            if text:
+                out.append(Text("• " + safe_text(text), style=self._s("warning")))
+        if e.get("source"):
+            out.append(Text(safe_text(e["source"]), style=self._s("muted")))
+        return out
