@@ -103,6 +103,16 @@ def _decisions(decisions: Journal | Mapping[str, Decision] | pd.DataFrame | None
 
 
 # ------------------------------------------------------------------------------------------------ images
+def plot_text(value: Any, limit: int = 40) -> str:
+    """Data text for a matplotlib label, shown literally: ``$`` escaped (no mathtext), a leading ``_``
+    guarded (matplotlib hides legend labels that start with it), control characters made visible, long
+    text shortened."""
+    text = _CONTROL.sub(lambda m: f"\\x{ord(m.group(0)):02x}", str(value)).replace("$", r"\$")
+    if text.startswith("_"):
+        text = " " + text
+    return text if len(text) <= limit else text[: limit - 1] + "\u2026"
+
+
 def _png(fig: Any) -> bytes:
     from matplotlib.backends.backend_agg import FigureCanvasAgg
 
@@ -140,7 +150,7 @@ def _histogram_png(
             width=widths,
             bottom=bottom,
             align="edge",
-            label=str(name),
+            label=plot_text(name),
             edgecolor="white",
             linewidth=0.4,
         )
@@ -164,12 +174,14 @@ def _images(scan: Scan) -> dict[str, bytes]:
     rows = scan.findings.rows
     tr = rows[~rows["held_out"].to_numpy(dtype=bool)]
     labels = tr["label"].astype(object).map(str).to_numpy()
+    two = len(scan.findings.summary.get("classes", [])) == 2
     margin = _histogram_png(
         tr["margin"].to_numpy(dtype=float),
         labels,
-        title="Margin of the training rows, stacked by label (dashed: 0 and 1)",
-        xlabel="margin y f(x)  (negative: the model disagrees with the label)",
-        marks=(0.0, 1.0),
+        title="Margin of the training rows, stacked by label (dashed: " + ("0 and 1)" if two else "0)"),
+        xlabel=("margin y f(x)" if two else "margin: score of the label minus the best other score")
+        + "  (negative: the model disagrees with the label)",
+        marks=(0.0, 1.0) if two else (0.0,),
     )
     score = _histogram_png(
         tr["score"].to_numpy(dtype=float),
