@@ -179,8 +179,9 @@ def _images(scan: Scan) -> dict[str, bytes]:
         tr["margin"].to_numpy(dtype=float),
         labels,
         title="Margin of the training rows, stacked by label (dashed: " + ("0 and 1)" if two else "0)"),
-        xlabel=("margin y f(x)" if two else "margin: score of the label minus the best other score")
-        + "  (negative: the model disagrees with the label)",
+        xlabel="margin y f(x)  (negative: the model disagrees with the label)"
+        if two
+        else "margin: label's score minus the best other  (negative: model disagrees)",
         marks=(0.0, 1.0) if two else (0.0,),
     )
     score = _histogram_png(
