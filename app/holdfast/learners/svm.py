@@ -35,6 +35,8 @@ DEFAULTS: dict[str, Any] = {
 }
 #: Largest training set for which the kernel matrix is precomputed (m*m float64: 1.2 GB at 12,000).
 PRECOMPUTE_MAX_ROWS = 12_000
+#: Rows with y f(x) below 1 + this start in the working set of a two-class refit (others join if needed).
+WORKING_SET_SLACK = 0.5
 #: A refit whose training decision values all move by less than this left the model unchanged.
 ESSENTIAL_TOL = 1e-4
 
@@ -94,6 +96,23 @@ def kernel_matrix(A: np.ndarray, B: np.ndarray, kernel: str, gamma: float, degre
     return polynomial_kernel(A, B, degree=degree, gamma=gamma, coef0=coef0)
 
 
+def submatrix(K: np.ndarray, keep: np.ndarray) -> np.ndarray:
+    """``K[keep][:, keep]``; when ``keep`` is all rows but one, built from four block copies (memcpy speed:
+    ~10x faster than fancy indexing at a few thousand rows)."""
+    m = K.shape[0]
+    if len(keep) == m - 1:
+        missing = np.setdiff1d(np.arange(m), keep, assume_unique=True)
+        if len(missing) == 1 and np.all(np.diff(keep) > 0):
+            i = int(missing[0])
+            out = np.empty((m - 1, m - 1), dtype=K.dtype)
+            out[:i, :i] = K[:i, :i]
+            out[:i, i:] = K[:i, i + 1 :]
+            out[i:, :i] = K[i + 1 :, :i]
+            out[i:, i:] = K[i + 1 :, i + 1 :]
+            return out
+    return K[np.ix_(keep, keep)]
+
+
 @dataclass
 class SVMRefitProblem:
     """Self-contained SVM training problem for refits without one row (picklable for joblib/dask)."""
@@ -105,6 +124,54 @@ class SVMRefitProblem:
     full_decision: np.ndarray
     K: np.ndarray | None = None
     X: np.ndarray | None = None
+    #: initial working set for two-class refits (support rows and rows near the margin), or None
+    working: np.ndarray | None = None
+
+    def _row_c(self, rows: np.ndarray) -> np.ndarray:
+        """The box limit C (times the class weight) of each row."""
+        weights = self.svc_params.get("class_weight")
+        c = float(self.svc_params["C"])
+        if not weights:
+            return np.full(len(rows), c)
+        return c * np.array([weights.get(int(k), 1.0) for k in self.y[rows]])
+
+    def _fit_working_set(self, row: int) -> tuple[np.ndarray, np.ndarray | None]:
+        """Two classes, precomputed kernel: solve on a working set, then add every row outside it that
+        violates its optimality condition (y f(x) >= 1 - tol for alpha = 0) and solve again, until none does.
+
+        A row outside the working set with alpha = 0 that satisfies y f(x) >= 1 already meets the KKT
+        conditions of the full problem, so the result is the optimum of the full problem to the solver's own
+        tolerance (the decomposition argument of Osuna, Freund & Girosi 1997, "An improved training
+        algorithm for support vector machines"; libsvm stops on the same condition).
+        """
+        m = self.y.shape[0]
+        ypm = np.where(self.y == 1, 1.0, -1.0)
+        work = self.working[self.working != row]
+        outside = np.ones(m, dtype=bool)
+        tol = float(self.svc_params.get("tol", 1e-6))
+        while True:
+            y_work = self.y[work]
+            if np.unique(y_work).size < 2:  # too small a working set: solve the whole problem
+                keep = np.concatenate([np.arange(row), np.arange(row + 1, m)])
+                pred, full_dec = self.fit_predict(keep)
+                return pred, full_dec
+            clf = SVC(kernel="precomputed", **self.svc_params)
+            clf.fit(self.K[np.ix_(work, work)], y_work)
+            sv = work[clf.support_]
+            if not np.any(np.abs(clf.dual_coef_[0]) < 0.999 * self._row_c(sv)):
+                # no free support row: the intercept is not unique and libsvm picks it from the bounds of
+                # all rows, so only the whole problem gives the same intercept as a full refit
+                keep = np.concatenate([np.arange(row), np.arange(row + 1, m)])
+                return self.fit_predict(keep)
+            dec = clf.dual_coef_[0] @ self.K[sv] + clf.intercept_[0]  # K symmetric: row gather
+            outside[:] = True
+            outside[work] = False
+            outside[row] = False
+            violators = np.flatnonzero(outside & (ypm * dec < 1.0 - tol))
+            if violators.size == 0:
+                pred = np.where(dec > 0, clf.classes_[1], clf.classes_[0]).astype(np.int64)
+                return pred, dec
+            work = np.union1d(work, violators)
 
     def fit_predict(self, keep: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
         """Fit on rows ``keep``; return predicted codes and decision values for all training rows."""
@@ -115,10 +182,10 @@ class SVMRefitProblem:
             return np.full(m, present[0], dtype=np.int64), None
         if self.K is not None:
             clf = SVC(kernel="precomputed", **self.svc_params)
-            clf.fit(self.K[np.ix_(keep, keep)], y_keep)
+            clf.fit(submatrix(self.K, keep), y_keep)
             if present.size == 2:
                 sv = keep[clf.support_]
-                dec = self.K[:, sv] @ clf.dual_coef_[0] + clf.intercept_[0]
+                dec = clf.dual_coef_[0] @ self.K[sv] + clf.intercept_[0]  # K symmetric: row gather
                 pred = np.where(dec > 0, clf.classes_[1], clf.classes_[0]).astype(np.int64)
                 return pred, (dec if self.n_classes == 2 else None)
             cross = self.K[:, keep]
@@ -139,7 +206,10 @@ class SVMRefitProblem:
         """Refit without training row ``row``; its LOO prediction, the flipped rows, the largest change."""
         m = self.y.shape[0]
         keep = np.concatenate([np.arange(row), np.arange(row + 1, m)])
-        pred, dec = self.fit_predict(keep)
+        if self.working is not None and self.K is not None and np.unique(self.y[keep]).size == 2:
+            pred, dec = self._fit_working_set(row)
+        else:
+            pred, dec = self.fit_predict(keep)
         changed = pred != self.full_prediction
         changed[row] = False
         max_change = float(np.max(np.abs(dec - self.full_decision))) if dec is not None else float("inf")
@@ -163,6 +233,7 @@ class SVMLearner:
         class_weight: str = "none",
         tol: float = 1e-6,
         precompute_max_rows: int = PRECOMPUTE_MAX_ROWS,
+        working_set: bool = True,
     ) -> None:
         self.kernel = kernel
         self.C = C
@@ -172,6 +243,7 @@ class SVMLearner:
         self.class_weight = class_weight
         self.tol = tol
         self.precompute_max_rows = precompute_max_rows
+        self.working_set = working_set
 
     # -- fitting -------------------------------------------------------------------------------------
     def fit(self, X: np.ndarray, y: np.ndarray) -> FittedModel:
@@ -207,6 +279,11 @@ class SVMLearner:
         prediction = self._codes(decision, clf.classes_)
         problem.full_prediction = prediction
         problem.full_decision = decision
+        if K is not None and n_classes == 2 and self.working_set:
+            ypm = np.where(y == 1, 1.0, -1.0)
+            near = np.flatnonzero((ypm * decision < 1.0 + WORKING_SET_SLACK) | np.isin(np.arange(m), clf.support_))
+            if len(near) < 0.8 * m:
+                problem.working = near
         self.problem_ = problem
 
         support = np.zeros(m, dtype=bool)
@@ -248,7 +325,7 @@ class SVMLearner:
 
     def _train_decision(self, clf: SVC, K: np.ndarray | None, X: np.ndarray, n_classes: int) -> np.ndarray:
         if n_classes == 2 and K is not None:
-            return K[:, clf.support_] @ clf.dual_coef_[0] + clf.intercept_[0]
+            return clf.dual_coef_[0] @ K[clf.support_] + clf.intercept_[0]  # K symmetric: row gather
         return clf.decision_function(K if K is not None else X)
 
     @staticmethod
