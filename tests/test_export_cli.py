@@ -191,7 +191,7 @@ def _run(args: list[str]) -> subprocess.CompletedProcess[str]:
 def test_subprocess_export_and_missing_session(session):
     t = session["tmp"]
     out = t / "sub.csv"
-    done = _run(["export", str(session["db"]), "--to", str(out)], t)
+    done = _run(["export", str(session["db"]), "--to", str(out)])
     assert done.returncode == 0, done.stderr
     assert done.stdout.strip().splitlines()[-1] == f"wrote {out}"
     assert pd.read_csv(out)["decision"].tolist() == session["decisions"]
