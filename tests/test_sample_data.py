@@ -235,7 +235,7 @@ def test_spec_names_existing_columns(spec, data):
     assert spec["prepare"] == {"scale": "standard", "categorical": "onehot"}
     assert spec["learner"]["family"] == "svm" and spec["learner"]["kernel"] == "rbf"
     assert spec["learner"]["gamma"] == "scale" and spec["learner"]["C"] > 0
-    assert spec["run"] == {"jobs": 1}
+    assert spec["run"] == {"jobs": -1}
     assert set(FEATURES) <= set(data.columns)
 
 
