@@ -28,7 +28,7 @@ def _reference_loo(X, y, learner: SVMLearner) -> np.ndarray:
 
 
 def _reference_flips(X, y, learner: SVMLearner, full_pred: np.ndarray, rows: np.ndarray) -> np.ndarray:
-    """Flip count of each row in ``rows`` from an independent full refit without it (kernel computed by libsvm)."""
+    """Flip count of each row in ``rows`` from an independent full refit without it (libsvm's own kernel)."""
     out = []
     for r in rows:
         keep = np.delete(np.arange(len(y)), r)
@@ -92,10 +92,7 @@ def test_multiclass_iris_matches_leave_one_out():
     assert int((result.loo_code != _reference_loo(X, y, learner)).sum()) == 0
 
 
-def test_parallel_refits_match_serial(cancer_subsample, monkeypatch):
-    import holdfast.engine.parallel as par
-
-    monkeypatch.setattr(par, "IN_PROCESS_SECONDS", 0.0)  # force worker processes even for a short job
+def test_parallel_refits_match_serial(cancer_subsample):
     X, y = cancer_subsample
     learner = SVMLearner(kernel="rbf", C=1.0)
     model = learner.fit(X, y)

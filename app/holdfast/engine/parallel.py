@@ -1,4 +1,4 @@
-"""Running many refits: in-process, with joblib worker processes, or on a dask cluster.
+"""Running many refits: in-process, on joblib threads, or on a dask cluster.
 
 Results come back as they finish (any order); progress and cancellation are checked between results.
 """
@@ -6,22 +6,12 @@ Results come back as they finish (any order); progress and cancellation are chec
 from __future__ import annotations
 
 import os
-import tempfile
-import time
-from collections.abc import Callable, Iterator
-from contextlib import contextmanager
-from dataclasses import replace
-from pathlib import Path
-from typing import Any
+from collections.abc import Callable
 
 import numpy as np
 
 from holdfast.errors import Cancelled, UserError
 from holdfast.learners.base import RefitOutcome, RefitProblem
-
-
-#: below this estimated serial time, refits run in-process (no worker start-up)
-IN_PROCESS_SECONDS = 4.0
 
 
 def refit_batch(problem: RefitProblem, rows: list[int]) -> list[RefitOutcome]:
@@ -36,19 +26,6 @@ def _chunks(rows: np.ndarray, size: int) -> list[list[int]]:
 def effective_jobs(jobs: int) -> int:
     """-1 means all cores."""
     return (os.cpu_count() or 1) if jobs == -1 else max(1, jobs)
-
-
-@contextmanager
-def _memmapped(problem: Any) -> Iterator[Any]:
-    """Put a large kernel matrix into a read-only memory-mapped .npy so workers share it, not copy it."""
-    K = getattr(problem, "K", None)
-    if K is None or K.nbytes < (8 << 20):
-        yield problem
-        return
-    with tempfile.TemporaryDirectory(prefix="holdfast-") as tmp:
-        path = Path(tmp) / "kernel.npy"
-        np.save(path, K)
-        yield replace(problem, K=np.load(path, mmap_mode="r"))
 
 
 def run_refits(
@@ -73,36 +50,29 @@ def run_refits(
     if backend == "dask":
         _run_dask(problem, rows, n_jobs, scheduler, on_results, cancel)
         return
-    if n_jobs > 1:
-        # Starting worker processes costs seconds: time one refit here and stay in-process when the
-        # whole job is short anyway.
-        t0 = time.perf_counter()
-        on_results([problem.refit_without(int(rows[0]))])
-        rows = rows[1:]
-        if (time.perf_counter() - t0) * len(rows) < IN_PROCESS_SECONDS:
-            n_jobs = 1
     if n_jobs == 1:
         for r in rows:
             if cancel():
                 raise Cancelled()
             on_results([problem.refit_without(int(r))])
         return
+    # Threads, not processes: libsvm's solver and numpy's kernels release the GIL, the kernel matrix is
+    # shared without copies, nothing starts up, and it works under a terminal UI that replaced stdio.
     from joblib import Parallel, delayed
 
     size = max(1, min(8, len(rows) // (n_jobs * 8) or 1))
-    with _memmapped(problem) as shared:
-        gen = Parallel(n_jobs=n_jobs, return_as="generator_unordered", max_nbytes=None)(
-            delayed(refit_batch)(shared, chunk) for chunk in _chunks(rows, size)
-        )
-        try:
-            for outcomes in gen:
-                on_results(outcomes)
-                if cancel():
-                    raise Cancelled()
-        finally:
-            close = getattr(gen, "close", None)
-            if close is not None:
-                close()
+    gen = Parallel(n_jobs=n_jobs, prefer="threads", return_as="generator_unordered")(
+        delayed(refit_batch)(problem, chunk) for chunk in _chunks(rows, size)
+    )
+    try:
+        for outcomes in gen:
+            on_results(outcomes)
+            if cancel():
+                raise Cancelled()
+    finally:
+        close = getattr(gen, "close", None)
+        if close is not None:
+            close()
 
 
 def _run_dask(
@@ -116,7 +86,8 @@ def _run_dask(
     try:
         from distributed import Client, LocalCluster, as_completed
     except ImportError:  # pragma: no cover - depends on the install
-        raise UserError("run.backend = \"dask\" needs dask.distributed: pip install \"holdfast[cluster]\"") from None
+        msg = 'run.backend = "dask" needs dask.distributed: pip install "holdfast[cluster]"'
+        raise UserError(msg) from None
     cluster = None
     if scheduler:
         try:
