@@ -52,6 +52,15 @@ class ScanCancelled(Message):
 
 
 @dataclass
+class DetailReady(Message):
+    """The row-detail precomputation finished (``context`` None when it failed: ``text`` says why)."""
+
+    context: Any
+    text: str = ""
+    generation: int = 0
+
+
+@dataclass
 class WhatIfProgress(Message):
     """Progress of the what-if refit."""
 

@@ -95,6 +95,7 @@ class ExportDialog(ModalScreen[ExportRequest | None]):
         if path_input.value == self._default or not path_input.value.strip():
             self._default = str(default_export_path(self.data_path, key))
             path_input.value = self._default
+        path_input.focus()  # enter now exports
 
     @on(Input.Submitted)
     def _submitted(self, event: Input.Submitted) -> None:

@@ -19,7 +19,7 @@ from rich.text import Text
 from textual import on, work
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
-from textual.containers import Container, Horizontal, Vertical
+from textual.containers import Container, Horizontal
 from textual.dom import DOMNode
 from textual.screen import Screen
 from textual.widgets import Footer, ProgressBar, Static
@@ -29,6 +29,7 @@ from holdfast.data.spec import Spec
 from holdfast.errors import Cancelled, UserError
 from holdfast.ui.commands import key_entries
 from holdfast.ui.messages import (
+    DetailReady,
     ExportFailed,
     ExportFinished,
     ScanCancelled,
@@ -45,6 +46,8 @@ from holdfast.ui.screens.dialogs import ChoiceDialog, ConfirmDialog, TextDialog
 from holdfast.ui.screens.export import ExportDialog, ExportRequest
 from holdfast.ui.session import USER_DECISIONS, DecisionBook, OpenedSession, decision_text
 from holdfast.ui.textsafe import literal, safe_text
+from holdfast.ui.widgets.overview import OverviewPanel
+from holdfast.ui.widgets.row_detail import RowDetailPanel
 from holdfast.ui.widgets.row_table import ColumnSpec, RowTable, format_float, format_text
 
 CAUTION = (
@@ -144,50 +147,6 @@ class InspectTable(RowTable):
     ]
 
 
-class OverviewPanel(Static):
-    """Placeholder overview until the overview widget is composed here."""
-
-    def show(self, summary: dict[str, Any]) -> None:
-        self.update(Text(overview_text(summary)))
-
-
-class DetailPanel(Static):
-    """Placeholder row detail until the row-detail widget is composed here."""
-
-    def show(self, scan: Any, position: int | None) -> None:
-        if position is None:
-            self.update("")
-            return
-        row = scan.findings.rows.iloc[position]
-        lines = [
-            f"id {safe_text(row['id'])}   label {safe_text(row['label'])}",
-            f"prediction {safe_text(row['prediction'])}   LOO prediction {safe_text(row['loo_prediction'])}",
-            f"margin {format_float(row['margin'], '+.3f')}   alpha {format_float(row['alpha'], '.3g')}",
-            f"flip count {row['flip_count']}   score {format_float(row['score'], '.3f')}",
-        ]
-        from holdfast.insight.flags import FLAG_REASONS
-
-        for name in [f for f in str(row["flags"] or "").split(",") if f]:
-            lines.append(f"- {name}: {FLAG_REASONS.get(name, '')}")
-        self.update(Text("\n".join(lines)))
-
-
-def overview_text(summary: dict[str, Any]) -> str:
-    """Two lines of the summary's numbers and bounds (used until the overview widget is composed)."""
-    m, d = summary.get("m", 0), summary.get("d", 0)
-    first = (
-        f"m {m:,} training rows · support rows d {d:,} ({summary.get('bounded', 0):,} bounded, "
-        f"{summary.get('free', 0):,} free) · training errors {summary.get('training_errors', 0):,} · "
-        f"{'exact' if summary.get('loo_exact', True) else 'approximate'} LOO errors "
-        f"{summary.get('loo_errors', 0):,}"
-    )
-    parts = []
-    for key, item in summary.get("bounds", {}).items():
-        if isinstance(item, dict) and "value" in item:
-            parts.append(f"{item.get('name', key)} {item['value']:.3f}")
-    return safe_text(first) + "\n" + safe_text(" · ".join(parts))
-
-
 class InspectScreen(Screen[None]):
     """Browse the rows of a scan, decide on them, export. See the help screen (?) for the keys."""
 
@@ -268,6 +227,14 @@ class InspectScreen(Screen[None]):
         ),
         Binding("g", "goto", "Go to id", id="holdfast.goto", tooltip="Jump to the row with a given id"),
         Binding(
+            "v",
+            "overview",
+            "Overview",
+            id="holdfast.overview",
+            show=False,
+            tooltip="Show the whole overview (bounds with sources, classes, margins); escape returns",
+        ),
+        Binding(
             "e",
             "export",
             "Export",
@@ -318,8 +285,8 @@ class InspectScreen(Screen[None]):
         self._busy: str | None = None  # "scan" or "what-if" while a worker runs
         self._scan_state = "idle"  # idle, running, done, failed, cancelled
         self._generation = 0  # number of the current scan; older scans' messages are ignored
-        self._detail_pending: int | None = None
         self._detail_timer: Any = None
+        self._detail_context: Any = None
         self._notices: list[str] = list(context.session.warnings)
 
     # ------------------------------------------------------------------ layout
@@ -332,8 +299,7 @@ class InspectScreen(Screen[None]):
         yield Static(id="notices")
         with Container(id="body"):
             yield InspectTable(id="rows", empty_text="Scanning… the rows appear when the scan has finished.")
-            with Vertical(id="detail-pane"):
-                yield DetailPanel(id="detail")
+            yield RowDetailPanel(id="detail")
         with Horizontal(id="status-row"):
             yield Static(id="status")
             yield Static(id="message")
@@ -349,6 +315,8 @@ class InspectScreen(Screen[None]):
         return [self.table, self, self.app]
 
     def on_mount(self) -> None:
+        self.query_one(OverviewPanel).show(None)
+        self.query_one(RowDetailPanel).show(None)
         self._show_notices()
         self.table.focus()
         if self.context.scan is not None:
@@ -463,7 +431,9 @@ class InspectScreen(Screen[None]):
         table.set_data(frame, list(TABLE_COLUMNS))
         table.sort_by("score", descending=True)
         table.move_cursor(0)
-        self.query_one(OverviewPanel).show(scan.findings.summary)
+        self.query_one(OverviewPanel).show(scan.findings.summary, self._margin_histogram(scan))
+        self._detail_context = None
+        self._detail_worker(scan, self._generation)
         if book.unmatched:
             self._notices.append(
                 f"{len(book.unmatched):,} row(s) with decisions are not in this data (e.g. id "
@@ -527,7 +497,6 @@ class InspectScreen(Screen[None]):
     @on(RowTable.CursorMoved)
     def _cursor_moved(self, event: RowTable.CursorMoved) -> None:
         self._update_status()
-        self._detail_pending = event.position
         if self._detail_timer is None:
             self._detail_timer = self.set_timer(DETAIL_DELAY, self._update_detail_now)
 
@@ -537,17 +506,57 @@ class InspectScreen(Screen[None]):
 
     @on(RowTable.RowChosen)
     def _row_chosen(self, event: RowTable.RowChosen) -> None:
-        pane = self.query_one("#detail-pane")
-        if self.maximized is pane:
+        panel = self.query_one(RowDetailPanel)
+        if self.maximized is panel:
             self.minimize()
         else:
-            self.maximize(pane, container=False)
+            self.maximize(panel, container=False)
+
+    @staticmethod
+    def _margin_histogram(scan: Any) -> Any:
+        """Margins of the training rows by label (the overview draws it)."""
+        from holdfast.insight.histograms import histogram
+
+        rows = scan.findings.rows
+        train = ~rows["held_out"].to_numpy(dtype=bool)
+        labels = np.array([str(v) for v in rows["label"].tolist()], dtype=object)
+        classes = [str(c) for c in scan.findings.classes]
+        return histogram(rows["margin"].to_numpy()[train], bins=24, by=labels[train], groups=classes)
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="detail", name="detail")
+    def _detail_worker(self, scan: Any, generation: int) -> None:
+        from holdfast.insight.detail import DetailContext
+
+        try:
+            context = DetailContext.from_scan(scan)
+        except Exception as exc:  # shown in the UI; the table works without the detail
+            self.post_message(DetailReady(None, error_line(exc), generation))
+            return
+        self.post_message(DetailReady(context, "", generation))
+
+    def on_detail_ready(self, message: DetailReady) -> None:
+        if message.generation != self._generation:
+            return
+        if message.context is None:
+            self._set_message(f"Row detail not available: {message.text}", error=True)
+            return
+        self._detail_context = message.context
+        self._update_detail_now()
 
     def _update_detail_now(self) -> None:
         self._detail_timer = None
-        if self.scan is None:
+        panel = self.query_one(RowDetailPanel)
+        position = self.table.cursor_row
+        if self._detail_context is None or self.book is None or position is None:
+            panel.show(None)
             return
-        self.query_one(DetailPanel).show(self.scan, self.table.cursor_row)
+        try:
+            detail = self._detail_context.row_detail(position)
+        except Exception as exc:  # one row that cannot be explained must not stop the app
+            panel.show(None)
+            self._set_message(f"Row detail failed: {error_line(exc)}", error=True)
+            return
+        panel.show(detail, decision=self.book.text[position] or None)
 
     # ------------------------------------------------------------------ actions: availability
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
@@ -817,6 +826,13 @@ class InspectScreen(Screen[None]):
             TextDialog("Go to the row with id:", hint="enter jumps · escape cancels", id="goto-dialog"),
             chosen,
         )
+
+    def action_overview(self) -> None:
+        panel = self.query_one(OverviewPanel)
+        if self.maximized is panel:
+            self.minimize()
+        else:
+            self.maximize(panel, container=False)
 
     def action_help(self) -> None:
         from holdfast.ui.screens.help import HelpScreen

@@ -26,6 +26,7 @@ CHANGED_COLUMNS: tuple[ColumnSpec, ...] = (
     ColumnSpec("id", "id", None, "left"),
     ColumnSpec("label_before", "label before", None, "left"),
     ColumnSpec("label_after", "label after", None, "left"),
+    ColumnSpec("decision", "decision", None, "left"),
     ColumnSpec("status_before", "before", None, "left"),
     ColumnSpec("status_after", "after", None, "left"),
 )
@@ -103,6 +104,14 @@ class WhatIfScreen(Screen[None]):
                 classes="help-title",
             )
             yield Static(comparison_table(list(getattr(r, "comparison", []) or [])), id="what-if-comparison")
+            notes = [safe_text(n) for n in getattr(r, "notes", []) or []]
+            unmatched = list(getattr(r, "unmatched", []) or [])
+            if unmatched:
+                notes.append(
+                    f"{len(unmatched):,} decision(s) name ids that are not in the data; they were ignored"
+                )
+            if notes:
+                yield Static(Text("\n".join(notes)), id="what-if-notes", classes="caution")
             yield Static(Text(f"Rows whose status changes: {len(changed):,}"), classes="help-heading")
             columns = [c for c in CHANGED_COLUMNS if c.key in changed.columns]
             yield RowTable(
