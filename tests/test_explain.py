@@ -167,8 +167,8 @@ def test_distance_stats_match_scipy():
 
 
 @pytest.fixture(scope="module")
-def cancer200():
-    return _cancer(200, seed=11)
+def cancer150():
+    return _cancer(150, seed=11)
 
 
 def _hints(tmp_path, data, **learner):
@@ -178,15 +178,15 @@ def _hints(tmp_path, data, **learner):
     return s, {h["kind"]: h for h in s["explanation"]["hints"]}
 
 
-def test_hint_gamma_too_large(tmp_path, cancer200):
+def test_hint_gamma_too_large(tmp_path, cancer150):
     # gamma=100 on standardized data: every row is its own island, nearly all rows become support rows
-    s, hints = _hints(tmp_path, cancer200, kernel="rbf", C=1.0, gamma=100.0)
+    s, hints = _hints(tmp_path, cancer150, kernel="rbf", C=1.0, gamma=100.0)
     assert s["d"] / s["m"] > 0.95
     assert "gamma_too_large" in hints and "C_too_small" not in hints
     h = hints["gamma_too_large"]
     assert "gamma is too large" in h["text"] and "too narrow" in h["text"]
     # the suggested width is the median heuristic, 1 / median squared distance (scipy pdist)
-    Xs = StandardScaler().fit_transform(cancer200[0])
+    Xs = StandardScaler().fit_transform(cancer150[0])
     assert h["evidence"]["suggested_gamma"] == pytest.approx(
         1 / np.median(pdist(Xs, "sqeuclidean")), rel=1e-9
     )
@@ -194,9 +194,9 @@ def test_hint_gamma_too_large(tmp_path, cancer200):
     assert f"{s['d']} of {s['m']} rows are support rows" in h["text"]
 
 
-def test_hint_C_too_small(tmp_path, cancer200):
+def test_hint_C_too_small(tmp_path, cancer150):
     # C=1e-3: nearly every support row sits at C and most are correct rows inside the (too wide) margin
-    s, hints = _hints(tmp_path, cancer200, kernel="rbf", C=1e-3, gamma=1 / 30)
+    s, hints = _hints(tmp_path, cancer150, kernel="rbf", C=1e-3, gamma=1 / 30)
     assert "C_too_small" in hints
     assert not {"gamma_too_large", "gamma_too_small"} & set(hints)
     text = hints["C_too_small"]["text"]
@@ -205,9 +205,9 @@ def test_hint_C_too_small(tmp_path, cancer200):
     assert f"{comp['bounded_correct']} of them" in text
 
 
-def test_hint_gamma_too_small(tmp_path, cancer200):
+def test_hint_gamma_too_small(tmp_path, cancer150):
     # gamma=1e-5: kernel values between any two rows above 0.99: a nearly constant kernel
-    s, hints = _hints(tmp_path, cancer200, kernel="rbf", C=1.0, gamma=1e-5)
+    s, hints = _hints(tmp_path, cancer150, kernel="rbf", C=1.0, gamma=1e-5)
     assert s["d"] / s["m"] > 0.5
     assert "gamma_too_small" in hints and "C_too_small" not in hints
     assert "gamma is too small" in hints["gamma_too_small"]["text"]
