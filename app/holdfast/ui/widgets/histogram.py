@@ -174,8 +174,8 @@ class HistogramView(Static):
         """The renderable for ``hist`` in this widget's styles."""
         return HistogramBars(
             hist,
-            bar_style=self.get_component_rich_style("histogram--bar", partial=True),
-            label_style=self.get_component_rich_style("histogram--label", partial=True),
-            axis_style=self.get_component_rich_style("histogram--axis", partial=True),
+            bar_style=self.get_component_rich_style("histogram--bar"),
+            label_style=self.get_component_rich_style("histogram--label"),
+            axis_style=self.get_component_rich_style("histogram--axis"),
             marker=self.marker,
         )

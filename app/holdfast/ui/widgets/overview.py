@@ -24,13 +24,18 @@ from textual.widgets import Static
 from holdfast.insight.histograms import Histogram
 from holdfast.ui.textsafe import safe_text
 from holdfast.ui.widgets.histogram import HistogramBars
-from holdfast.ui.widgets.row_detail import cell, fmt_number, grid
+from holdfast.ui.widgets.row_detail import fmt_number
 
 #: bounds in the order an analyst reads them; others follow in the summary's order
 BOUND_ORDER = ("loo_error", "support_fraction", "loo_bound", "xi_alpha", "span", "compression", "test_set")
 #: width of one block when blocks stand side by side
 BLOCK_WIDTH = 36
 SHARE_BAR = 10
+
+
+def cell(value: str, style: Style | str = "") -> Text:
+    """A literal table cell (our own text or text already passed through ``safe_text``)."""
+    return Text(value, style=style, no_wrap=True, overflow="ellipsis")
 
 
 def _count(value: Any) -> str:
@@ -119,7 +124,7 @@ class OverviewPanel(VerticalScroll):
         yield Static("", classes="overview-body", markup=False)
 
     def _s(self, name: str) -> Style:
-        return self.get_component_rich_style(f"overview--{name}", partial=True)
+        return self.get_component_rich_style(f"overview--{name}")
 
     def show(self, summary: dict[str, Any] | None, margin_hist: Histogram | None = None) -> None:
         """Draw ``summary`` (the findings summary dict) and ``margin_hist`` (margins by class)."""
@@ -228,7 +233,7 @@ class OverviewPanel(VerticalScroll):
         counts = s.get("class_counts") or {}
         out: list[RenderableType] = [self._heading("Classes")]
         total = sum(int(v) for v in counts.values()) or 1
-        table = grid()
+        table = Table.grid(padding=(0, 1))
         table.add_column(no_wrap=True, overflow="ellipsis", max_width=16)
         table.add_column(justify="right", no_wrap=True)
         table.add_column(justify="right", no_wrap=True)

@@ -1,24 +1,30 @@
 """RowDetailPanel: one row explained (header, flags, features against the class, neighbours, flips).
 
-The panel draws a :class:`holdfast.insight.detail.RowDetail`; it computes nothing. Every text that comes
-from the data set (ids, labels, feature names and values) goes through ``safe_text`` into a
-``rich.text.Text``, which is never parsed as markup. Tables are ``rich`` grids that fit the width they
-are given, so the panel works from about 40 columns up and scrolls vertically.
+The panel draws a :class:`holdfast.insight.detail.RowDetail`; it computes nothing about the row. It is a
+Line API widget (``ScrollView`` + ``render_line``): :meth:`RowDetailPanel.show` lays the detail out once
+for the panel's width into plain strips, and scrolling only picks strips, so following the cursor stays
+cheap. Every text that comes from the data set (ids, labels, feature names and values) goes through
+``safe_text`` and is drawn as a plain ``Segment``: it is never parsed as markup, and control codes are
+shown as visible escapes.
 """
 
 from __future__ import annotations
 
 import math
-from typing import Any, ClassVar
+import re
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Any, ClassVar, Literal
 
 import numpy as np
-from rich.console import Group, RenderableType
+import pandas as pd
+from rich.cells import cell_len, set_cell_size
+from rich.segment import Segment
 from rich.style import Style
-from rich.table import Table
-from rich.text import Text
-from textual.app import ComposeResult
-from textual.containers import VerticalScroll
-from textual.widgets import Static
+from textual import events
+from textual.geometry import Size
+from textual.scroll_view import ScrollView
+from textual.strip import Strip
 
 from holdfast.insight.detail import RowDetail
 from holdfast.ui.textsafe import safe_text
@@ -32,6 +38,11 @@ UNUSUAL_MARK = "!"
 DISSENT_MARK = "≠"
 ARROW = "→"
 DASH = "–"
+ELLIPSIS = "…"
+
+Part = tuple[str, str]  # (text, component-class suffix or "" for plain)
+Line = list[Part]
+Align = Literal["left", "right"]
 
 
 def fmt_number(value: Any, spec: str = ".4g") -> str:
@@ -60,17 +71,107 @@ def fmt_value(value: Any) -> str:
     return safe_text(value)
 
 
-def grid(*, expand: bool = False) -> Table:
-    """A borderless ``rich`` table with one space between columns."""
-    return Table.grid(padding=(0, 1), expand=expand)
+class _Record(dict):
+    """One table row with its columns as attributes."""
+
+    __getattr__ = dict.__getitem__
 
 
-def cell(value: str, style: Style | str = "") -> Text:
-    """A literal table cell (our own text or text already passed through ``safe_text``)."""
-    return Text(value, style=style, no_wrap=True, overflow="ellipsis")
+def records(frame: pd.DataFrame) -> list[_Record]:
+    """The rows of a small frame as records (much cheaper than ``itertuples`` for a few rows)."""
+    columns = [str(c) for c in frame.columns]
+    data = [frame[c].tolist() for c in frame.columns]
+    return [_Record(zip(columns, values, strict=True)) for values in zip(*data, strict=True)]
 
 
-class RowDetailPanel(VerticalScroll):
+def fit(text: str, width: int, align: Align = "left") -> str:
+    """``text`` padded or cut (with an ellipsis) to exactly ``width`` terminal cells."""
+    if width <= 0:
+        return ""
+    size = cell_len(text)
+    if size > width:
+        return set_cell_size(text, width - 1) + ELLIPSIS if width > 1 else ELLIPSIS
+    pad = " " * (width - size)
+    return pad + text if align == "right" else text + pad
+
+
+def wrap(parts: Sequence[Part], width: int, indent: int = 0) -> list[Line]:
+    """Greedy word wrap of styled parts to ``width`` cells; continuation lines start with ``indent``
+    spaces; a word longer than a line is cut into pieces."""
+    width = max(1, width)
+    indent = min(indent, width - 1) if width > 1 else 0
+    lines: list[Line] = [[]]
+    used = 0
+    start = 0
+    for text, style in parts:
+        for token in re.findall(r"\S+|\s+", text):
+            if token.isspace():
+                if used > start:
+                    _append(lines[-1], token, style)
+                    used += cell_len(token)
+                continue
+            size = cell_len(token)
+            if used + size > width and used > start:
+                while lines[-1] and lines[-1][-1][0].isspace():
+                    used -= cell_len(lines[-1].pop()[0])
+                lines.append([(" " * indent, "")] if indent else [])
+                used = start = indent
+            while size > width - used:
+                room = width - used
+                piece = set_cell_size(token, room)
+                lines[-1].append((piece, style))
+                token = token[len(piece) :]
+                size = cell_len(token)
+                lines.append([(" " * indent, "")] if indent else [])
+                used = start = indent
+            _append(lines[-1], token, style)
+            used += size
+    return lines
+
+
+def _append(line: Line, text: str, style: str) -> None:
+    """Add ``text`` to ``line``, joining it to the last part when the style is the same."""
+    if line and line[-1][1] == style:
+        line[-1] = (line[-1][0] + text, style)
+    else:
+        line.append((text, style))
+
+
+@dataclass(frozen=True)
+class Col:
+    """A column of a :func:`grid`: alignment, width limits, and whether it takes the spare width."""
+
+    align: Align = "left"
+    min: int = 1
+    max: int = 40
+    flex: bool = False
+
+
+def grid(rows: Sequence[Sequence[Part]], cols: Sequence[Col], width: int) -> list[Line]:
+    """Lay out rows of single-style cells in columns one space apart, fitted to ``width`` cells.
+
+    Columns take their widest cell (within their limits); the flex column takes what is left and
+    gives it back first when the width is short; a line that still does not fit is cut at the edge.
+    """
+    widths = [max([c.min, *(cell_len(r[j][0]) for r in rows)]) for j, c in enumerate(cols)]
+    widths = [min(w, c.max) for w, c in zip(widths, cols, strict=True)]
+    spare = width - sum(widths) - (len(cols) - 1)
+    for j, c in enumerate(cols):
+        if c.flex:
+            widths[j] = max(c.min, widths[j] + spare) if spare < 0 else max(widths[j], c.min) + spare
+            break
+    out: list[Line] = []
+    for r in rows:
+        line: Line = []
+        for j, (text, style) in enumerate(r):
+            if j:
+                line.append((" ", ""))
+            line.append((fit(text, widths[j], cols[j].align), style))
+        out.append(line)
+    return out
+
+
+class RowDetailPanel(ScrollView):
     """Scrollable detail of one row; call :meth:`show` with a :class:`RowDetail` (or ``None``)."""
 
     COMPONENT_CLASSES: ClassVar[set[str]] = {
@@ -102,6 +203,7 @@ class RowDetailPanel(VerticalScroll):
     RowDetailPanel {
         height: 1fr;
         overflow-x: hidden;
+        scrollbar-gutter: stable;
         & > .row-detail--id { text-style: bold; }
         & > .row-detail--heading { text-style: bold; }
         & > .row-detail--muted { color: $text-muted; }
@@ -111,7 +213,6 @@ class RowDetailPanel(VerticalScroll):
         & > .row-detail--unusual { color: $warning; text-style: bold; }
         & > .row-detail--dissent { color: $warning; }
         & > .row-detail--decision { color: $accent; text-style: bold; }
-        & > Static { width: 1fr; }
     }
     """
 
@@ -119,179 +220,240 @@ class RowDetailPanel(VerticalScroll):
         super().__init__(name=name, id=id, classes=classes)
         self.detail: RowDetail | None = None
         self.decision: str | None = None
+        self._lines: list[Line] = []
+        self._strips: list[Strip] = []
+        self._laid_width = -1
+        self._styles: dict[str, Style] = {}
 
-    def compose(self) -> ComposeResult:
-        yield Static("", classes="row-detail-body", markup=False)
-
-    def _s(self, name: str) -> Style:
-        return self.get_component_rich_style(f"row-detail--{name}", partial=True)
+    # -- public ----------------------------------------------------------------------------------------
 
     def show(self, detail: RowDetail | None, *, decision: str | None = None) -> None:
-        """Draw ``detail``; ``decision`` is the row's current decision as text (e.g. ``"relabel → b"``)."""
+        """Draw ``detail``; ``decision`` is the row's current decision as text (e.g. ``"relabel → b"``).
+        The panel scrolls back to the top when the row changes."""
+        same_row = detail is not None and self.detail is not None and detail.position == self.detail.position
         self.detail = detail
         self.decision = decision
-        body = self.query_one(".row-detail-body", Static)
-        if detail is None:
-            body.update(Text("No row selected.", style=self._s("muted")))
-            return
-        body.update(Group(*self.render_parts(detail, decision)))
+        self._relayout()
+        if not same_row:
+            self.scroll_to(0, 0, animate=False)
 
-    # -- parts -----------------------------------------------------------------------------------------
+    @property
+    def lines(self) -> list[str]:
+        """The laid-out lines as plain text (what the panel shows, top to bottom, before scrolling)."""
+        return ["".join(text for text, _ in line) for line in self._lines]
 
-    def render_parts(self, d: RowDetail, decision: str | None = None) -> list[RenderableType]:
-        """The renderables of the panel, top to bottom."""
-        parts: list[RenderableType] = [*self._header(d, decision), Text("")]
-        parts += self._flags(d)
-        parts += [Text(""), *self._features(d)]
-        parts += [Text(""), *self._neighbours(d)]
+    # -- layout ----------------------------------------------------------------------------------------
+
+    def _width(self) -> int:
+        return max(10, self.scrollable_content_region.width)
+
+    def _relayout(self) -> None:
+        width = self._width()
+        self._laid_width = width
+        self._lines = self.layout(self.detail, width, self.decision)
+        self._strips = []
+        self.virtual_size = Size(width, len(self._lines))
+        self.refresh()
+
+    def layout(self, d: RowDetail | None, width: int, decision: str | None = None) -> list[Line]:
+        """The panel's lines for ``d`` at ``width`` cells."""
+        if d is None:
+            return [[("No row selected.", "muted")]]
+        out: list[Line] = []
+        out += self._header(d, width, decision)
+        out += [[], *self._flags(d, width)]
+        out += [[], *self._features(d, width)]
+        out += [[], *self._neighbours(d, width)]
         if d.support or len(d.flipped):
-            parts += [Text(""), *self._flipped(d)]
-        return parts
+            out += [[], *self._flipped(d, width)]
+        return out
 
-    def _header(self, d: RowDetail, decision: str | None) -> list[RenderableType]:
-        muted = self._s("muted")
-        line = Text()
-        line.append(safe_text(d.id), style=self._s("id"))
-        line.append("  label ", style=muted)
-        line.append(safe_text(d.label))
-        line.append(f" {ARROW} LOO ", style=muted)
+    def _header(self, d: RowDetail, width: int, decision: str | None) -> list[Line]:
         miss = d.loo_prediction is not None and d.loo_prediction != d.label
-        line.append(safe_text(d.loo_prediction or DASH), style=self._s("miss" if miss else "agree"))
-        numbers = Text()
+        out = wrap(
+            [
+                (safe_text(d.id), "id"),
+                ("  label ", "muted"),
+                (safe_text(d.label), ""),
+                (f" {ARROW} LOO ", "muted"),
+                (safe_text(d.loo_prediction or DASH), "miss" if miss else "agree"),
+            ],
+            width,
+            indent=2,
+        )
+        numbers: list[Part] = []
         for title, value in (
             ("margin", fmt_number(d.margin, "+.3f")),
             ("score", fmt_number(d.score, ".3f")),
             ("rank", f"{d.rank:,}" if d.rank else DASH),
         ):
-            numbers.append(f"{title} ", style=muted)
-            numbers.append(f"{value}   ")
-        numbers.rstrip()
-        lines: list[RenderableType] = [line, numbers]
+            numbers += [(f"{title} ", "muted"), (f"{value}   ", "")]
+        out += wrap(numbers, width, indent=2)
         if d.held_out:
-            lines.append(Text("held-out row: never trained on", style=muted))
+            out += wrap([("held-out row: never trained on", "muted")], width)
+        elif d.support:
+            kinds = ["support row", "bounded" if d.bounded else "free"] + (
+                ["essential"] if d.essential else []
+            )
+            out += wrap(
+                [
+                    (" · ".join(kinds), ""),
+                    (f"   alpha {fmt_number(d.alpha, '.4g')}   flips {d.flip_count:,}", "muted"),
+                ],
+                width,
+                indent=2,
+            )
         else:
-            role = Text()
-            if d.support:
-                kinds = ["support row", "bounded" if d.bounded else "free"]
-                kinds += ["essential"] if d.essential else []
-                role.append(" · ".join(kinds))
-                role.append(f"   alpha {fmt_number(d.alpha, '.4g')}   flips {d.flip_count:,}", style=muted)
-            else:
-                role.append("not a support row (leaving it out changes nothing)", style=muted)
-            lines.append(role)
-        pred = Text()
-        pred.append("prediction with all rows ", style=muted)
-        pred.append(safe_text(d.prediction or DASH))
-        lines.append(pred)
+            out += wrap([("not a support row: leaving it out changes nothing", "muted")], width, indent=2)
+        out += wrap([("prediction with all rows ", "muted"), (safe_text(d.prediction or DASH), "")], width, 2)
         if decision:
-            dec = Text()
-            dec.append("decision ", style=muted)
-            dec.append(safe_text(decision), style=self._s("decision"))
-            lines.append(dec)
-        return lines
+            out += wrap([("decision ", "muted"), (safe_text(decision), "decision")], width, indent=2)
+        return out
 
-    def _flags(self, d: RowDetail) -> list[RenderableType]:
-        heading = Text("Flags", style=self._s("heading"))
-        heading.append("  evidence, not proof", style=self._s("muted"))
+    def _flags(self, d: RowDetail, width: int) -> list[Line]:
+        out = wrap([("Flags", "heading"), ("  evidence, not proof", "muted")], width)
         if not d.flags:
-            return [heading, Text("no flags raised", style=self._s("muted"))]
-        table = grid()
-        table.add_column(no_wrap=True)
-        table.add_column(overflow="fold")
+            return [*out, [("no flags raised", "muted")]]
+        name_w = min(max(cell_len(safe_text(n)) for n, _ in d.flags), max(8, width // 3))
         for name, reason in d.flags:
-            table.add_row(cell(safe_text(name), self._s("flag")), Text(safe_text(reason)))
-        return [heading, table]
+            out += wrap(
+                [(fit(safe_text(name), name_w), "flag"), (" " + safe_text(reason), "")], width, name_w + 1
+            )
+        return out
 
-    def _features(self, d: RowDetail) -> list[RenderableType]:
-        muted = self._s("muted")
-        heading = Text("Features", style=self._s("heading"))
-        heading.append(f"  vs label {safe_text(d.label)}, {d.class_rows:,} other training rows", style=muted)
+    def _features(self, d: RowDetail, width: int) -> list[Line]:
+        out = wrap(
+            [
+                ("Features", "heading"),
+                (f"  vs label {safe_text(d.label)}, {d.class_rows:,} other training rows", "muted"),
+            ],
+            width,
+        )
         f = d.features
         if f.empty:
-            return [heading, Text("no features", style=muted)]
-        table = grid(expand=True)
-        table.add_column(ratio=1, no_wrap=True, overflow="ellipsis", min_width=6)
-        table.add_column(justify="right", no_wrap=True, overflow="ellipsis", max_width=14)
-        table.add_column(justify="right", no_wrap=True, overflow="ellipsis", max_width=14)
-        table.add_column(justify="right", no_wrap=True, width=6)
-        table.add_column(no_wrap=True, width=1)
-        titles = ("feature", "value", "class mean", "z")
-        table.add_row(*(cell(t, muted) for t in titles), "")
+            return [*out, [("no features", "muted")]]
+        rows: list[list[Part]] = [
+            [("feature", "muted"), ("value", "muted"), ("class mean", "muted"), ("z", "muted"), ("", "")]
+        ]
         unusual_seen = False
-        for r in f.itertuples(index=False):
+        for r in records(f):
             if r.kind == "categorical":
                 share = "" if np.isnan(r.share) else f"{r.share:.0%} share"
-                name, value = cell(safe_text(r.feature)), cell(fmt_value(r.value))
-                table.add_row(name, value, cell(share, muted), "", "")
+                rows.append(
+                    [
+                        (safe_text(r.feature), ""),
+                        (fmt_value(r.value), ""),
+                        (share, "muted"),
+                        ("", ""),
+                        ("", ""),
+                    ]
+                )
                 continue
-            unusual = bool(abs(r.z) >= UNUSUAL_Z) if not np.isnan(r.z) else False
+            unusual = bool(not np.isnan(r.z) and abs(r.z) >= UNUSUAL_Z)
             unusual_seen |= unusual
-            style = self._s("unusual") if unusual else ""
-            table.add_row(
-                cell(safe_text(r.feature), style),
-                cell(fmt_value(r.value), style),
-                cell(fmt_number(r.class_mean, ".4g")),
-                cell(fmt_number(r.z, "+.2f"), style),
-                cell(UNUSUAL_MARK if unusual else "", style),
+            style = "unusual" if unusual else ""
+            rows.append(
+                [
+                    (safe_text(r.feature), style),
+                    (fmt_value(r.value), style),
+                    (fmt_number(r.class_mean, ".4g"), ""),
+                    (fmt_number(r.z, "+.2f"), style),
+                    (UNUSUAL_MARK if unusual else "", style),
+                ]
             )
-        parts: list[RenderableType] = [heading, table]
-        numeric = f[f["kind"] == "numeric"]
-        notes = [str(n) for n in numeric["note"]]
+        cols = [
+            Col(min=6, max=40, flex=True),
+            Col("right", 5, 14),
+            Col("right", 10, 14),
+            Col("right", 6, 7),
+            Col(max=1),
+        ]
+        out += grid(rows, cols, width)
+        numeric = [r for r in records(f[["feature", "kind", "note"]]) if r.kind == "numeric"]
+        notes = [str(r.note) for r in numeric]
         if notes and all(n == notes[0] for n in notes):
             if notes[0]:
-                parts.append(Text(notes[0], style=muted))
+                out += wrap([(notes[0], "muted")], width)
         else:
-            for name, note in zip(numeric["feature"], notes, strict=True):
-                if note:
-                    parts.append(Text(f"{safe_text(name)}: {note}", style=muted))
+            for r in numeric:
+                if r.note:
+                    out += wrap([(f"{safe_text(r.feature)}: {r.note}", "muted")], width, indent=2)
         if unusual_seen:
-            parts.append(Text(f"{UNUSUAL_MARK} |z| >= {UNUSUAL_Z:g}: unusual for the label", style=muted))
-        return parts
+            out += wrap([(f"{UNUSUAL_MARK} |z| >= {UNUSUAL_Z:g}: unusual for the label", "muted")], width)
+        return out
 
-    def _neighbours(self, d: RowDetail) -> list[RenderableType]:
-        muted = self._s("muted")
+    def _neighbours(self, d: RowDetail, width: int) -> list[Line]:
         nb = d.neighbours
-        heading = Text("Nearest training rows", style=self._s("heading"))
+        head: list[Part] = [("Nearest training rows", "heading")]
         if len(nb):
             other = int((~nb["same_label"].astype(bool)).sum())
-            heading.append(f"  {other} of {len(nb)} carry another label", style=muted)
+            head.append((f"  {other} of {len(nb)} carry another label", "muted"))
+        out = wrap(head, width)
         if nb.empty:
-            return [heading, Text("no other training rows", style=muted)]
-        table = grid(expand=True)
-        table.add_column(no_wrap=True, width=1)
-        table.add_column(ratio=1, no_wrap=True, overflow="ellipsis", min_width=6)
-        table.add_column(no_wrap=True, overflow="ellipsis", max_width=18)
-        table.add_column(justify="right", no_wrap=True)
-        table.add_row("", cell("id", muted), cell("label", muted), cell("distance", muted))
-        for r in nb.itertuples(index=False):
-            same = bool(r.same_label)
-            style = "" if same else self._s("dissent")
-            table.add_row(
-                cell("" if same else DISSENT_MARK, style),
-                cell(safe_text(r.id), style),
-                cell(safe_text(r.label), style),
-                cell(fmt_number(r.distance, ".3f")),
+            return [*out, [("no other training rows", "muted")]]
+        rows: list[list[Part]] = [[("", ""), ("id", "muted"), ("label", "muted"), ("distance", "muted")]]
+        for r in records(nb):
+            style = "" if r.same_label else "dissent"
+            rows.append(
+                [
+                    ("" if r.same_label else DISSENT_MARK, style),
+                    (safe_text(r.id), style),
+                    (safe_text(r.label), style),
+                    (fmt_number(r.distance, ".3f"), ""),
+                ]
             )
-        return [heading, table]
+        return out + grid(
+            rows, [Col(max=1), Col(min=6, flex=True), Col(min=5, max=18), Col("right", 8, 10)], width
+        )
 
-    def _flipped(self, d: RowDetail) -> list[RenderableType]:
-        muted = self._s("muted")
+    def _flipped(self, d: RowDetail, width: int) -> list[Line]:
         fl = d.flipped
-        heading = Text("Rows that flip without it", style=self._s("heading"))
-        heading.append(f"  {len(fl):,}", style=muted)
+        out = wrap([("Rows that flip without it", "heading"), (f"  {len(fl):,}", "muted")], width)
         if fl.empty:
-            return [heading, Text("no other row changes its prediction without it", style=muted)]
-        table = grid(expand=True)
-        table.add_column(ratio=1, no_wrap=True, overflow="ellipsis", min_width=6)
-        table.add_column(no_wrap=True, overflow="ellipsis", max_width=16)
-        table.add_column(no_wrap=True, overflow="ellipsis", max_width=30)
-        table.add_row(cell("id", muted), cell("label", muted), cell("prediction", muted))
-        for r in fl.head(FLIPPED_SHOWN).itertuples(index=False):
+            return out + wrap([("no other row changes its prediction without it", "muted")], width)
+        rows: list[list[Part]] = [[("id", "muted"), ("label", "muted"), ("prediction", "muted")]]
+        for r in records(fl.head(FLIPPED_SHOWN)):
             change = safe_text(r.prediction)
             if r.prediction_without is not None:
                 change += f" {ARROW} {safe_text(r.prediction_without)}"
-            table.add_row(cell(safe_text(r.id)), cell(safe_text(r.label)), cell(change))
-        parts: list[RenderableType] = [heading, table]
+            rows.append([(safe_text(r.id), ""), (safe_text(r.label), ""), (change, "")])
+        out += grid(rows, [Col(min=6, flex=True), Col(min=5, max=16), Col(min=10, max=34)], width)
         if len(fl) > FLIPPED_SHOWN:
-            parts.append(Text(f"... and {len(fl) - FLIPPED_SHOWN:,} more", style=muted))
-        return parts
+            out += [[(f"... and {len(fl) - FLIPPED_SHOWN:,} more", "muted")]]
+        return out
+
+    # -- drawing ---------------------------------------------------------------------------------------
+
+    def _style(self, name: str) -> Style:
+        style = self._styles.get(name)
+        if style is None:
+            style = self.rich_style if name == "" else self.get_component_rich_style(f"row-detail--{name}")
+            self._styles[name] = style
+        return style
+
+    def _strip(self, index: int) -> Strip:
+        if not self._strips:
+            base = self._style("")
+            self._strips = [
+                Strip([Segment(text, base + self._style(style)) for text, style in line if text])
+                for line in self._lines
+            ]
+        return self._strips[index]
+
+    def render_line(self, y: int) -> Strip:
+        scroll_x, scroll_y = self.scroll_offset
+        width = self.scrollable_content_region.width
+        base = self._style("")
+        index = scroll_y + y
+        if index >= len(self._lines):
+            return Strip.blank(width, base)
+        return self._strip(index).crop_extend(scroll_x, scroll_x + width, base)
+
+    def on_resize(self, event: events.Resize) -> None:
+        if self._width() != self._laid_width:
+            self._relayout()
+
+    def notify_style_update(self) -> None:
+        super().notify_style_update()
+        self._styles = {}
+        self._strips = []
