@@ -514,3 +514,62 @@ async def test_cancel_keeps_finished_refits_and_resume_finishes(
         await until(pilot, lambda: screen._scan_state == "done")
         assert screen.scan.findings.summary["resumed_refits"] >= 1
         assert screen.table.row_count == 160
+
+
+# ------------------------------------------------------------------------------------------ what-if, report
+
+
+async def test_what_if_shows_the_refit_with_the_decisions_applied(ds: DataSet) -> None:
+    from holdfast.insight.whatif import what_if
+    from holdfast.ui.screens.whatif import WhatIfScreen
+
+    app = make_app(ds)
+    async with app.run_test(size=SIZE) as pilot:
+        screen = await scanned(pilot)
+        await pilot.press("f")
+        await choose(pilot, "loo_miss")
+        await pilot.press("b")
+        await choose(pilot, "exclude")
+        await pilot.press("y")
+        await pilot.press("w")
+        await until(pilot, lambda: isinstance(app.screen, WhatIfScreen))
+        shown = app.screen.result
+        text = screen_text(app)
+        # The same refit run directly on the journal's decisions gives the numbers on screen.
+        direct = what_if(screen.scan, app.context.session.journal.current())
+        assert shown.comparison == direct.comparison
+        assert f"{direct.excluded:,} excluded" in text
+        _, before, after = next(r for r in direct.comparison if r[0] == "LOO errors")
+        line = next(line for line in text.splitlines() if line.strip().startswith("LOO errors"))
+        assert f"{before:,}" in line and f"{after:,}" in line
+        assert f"Rows whose status changes: {len(direct.changed):,}" in text
+        await pilot.press("escape")
+        assert app.screen is screen
+
+
+async def test_report_export_writes_markdown(ds: DataSet, tmp_path: Path) -> None:
+    app = make_app(ds)
+    async with app.run_test(size=SIZE) as pilot:
+        screen = await scanned(pilot)
+        await pilot.press("g", *"crate-0042", "enter", "x")
+        assert current(ds)["crate-0042"].decision == "exclude"
+        report = tmp_path / "report.md"
+        await export_via_dialog(pilot, "report", report)
+        await until(pilot, lambda: "Wrote the report" in str(screen.query_one("#message").content), 180)
+        text = report.read_text()
+        assert "evidence" in text.lower()
+        assert "crate-0042" in text  # the decision made in the UI is in the report
+
+
+async def test_command_palette_offers_the_same_actions(ds: DataSet) -> None:
+    app = make_app(ds)
+    async with app.run_test(size=SIZE) as pilot:
+        screen = await scanned(pilot)
+        first = screen.book.ids[screen.table.cursor_row]
+        await pilot.press("ctrl+p")
+        await pilot.press(*"exclude")
+        await pilot.pause(0.5)
+        assert "Exclude  (x)" in screen_text(app)
+        await pilot.press("enter")
+        await until(pilot, lambda: first in current(ds))
+        assert current(ds)[first].decision == "exclude"
