@@ -276,7 +276,7 @@ class DetailContext:
         X = self.train_X
         x = np.asarray(p.X[position], dtype=np.float64) + 0.0
         xx = float(x @ x)
-        d2 = X @ (-2.0 * x)
+        d2 = np.einsum("ij,j->i", X, -2.0 * x)  # no threaded BLAS: steadier on a busy machine
         d2 += self.sq_norms
         d2 += xx
         slot = int(self.train_slot[position])
