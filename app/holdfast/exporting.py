@@ -164,6 +164,9 @@ def export_session(
             if any(d.decision in ("relabel", "exclude") and rid in present for rid, d in current.items()):
                 from holdfast.insight.whatif import what_if
 
-                whatif = what_if(scan, current, progress=progress)
+                try:
+                    whatif = what_if(scan, current, progress=progress)
+                except UserError as exc:  # e.g. the decisions leave one class only: report without it
+                    warn(f"what-if refit skipped in the report: {exc}")
             written.append(write_report(scan, current, outputs["report"], force=force, whatif=whatif))
     return written
