@@ -200,3 +200,17 @@ def test_subprocess_export_and_missing_session(session):
     assert done.returncode == 2
     assert _one_line(done.stderr) == f"holdfast: error: {missing}: no such session file"
     assert done.stdout == "" and not (t / "x.csv").exists()
+
+
+def test_report_without_whatif_when_the_decisions_leave_one_class(session, capsys):
+    frame = session["frame"]
+    with Journal.open(session["db"]) as j:
+        j.record_many(
+            [(s, "exclude", None, None) for s in frame.loc[frame["grade"] == "malignant", "sample"]]
+        )
+    out = session["tmp"] / "r.md"
+    assert main(["export", str(session["db"]), "--report", str(out)]) == 0
+    err = capsys.readouterr().err
+    assert "what-if refit skipped" in err and "one class only" in err
+    text = out.read_text(encoding="utf-8")
+    assert "## What-if" not in text and "## Decisions taken" in text
