@@ -39,8 +39,9 @@ def test_cancel_then_resume_gives_the_same_result(fitted, tmp_path):
     n_kept = len(kept.load())
     assert 0 < n_kept < int(model.support.sum())
     seen = []
-    resumed = exact_loo(model, learner.refit_problem(), store=kept,
-                        progress=lambda done, total, eta: seen.append(done))
+    resumed = exact_loo(
+        model, learner.refit_problem(), store=kept, progress=lambda done, total, eta: seen.append(done)
+    )
     kept.close()
     assert resumed.resumed == n_kept and resumed.refits == int(model.support.sum()) - n_kept
     assert seen[0] == n_kept

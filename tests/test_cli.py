@@ -26,8 +26,14 @@ def data(tmp_path):
     x1, x2 = rng.normal(size=n), rng.normal(size=n)
     grade = np.where(x1 + 0.5 * x2 + 0.3 * rng.normal(size=n) > 0, "premium", "processing")
     frame = pd.DataFrame(
-        {"lot": [f"L{i:04d}" for i in range(n)], "x1": x1, "x2": x2,
-         "block": rng.choice(["B01", "B02"], n), "holdout": np.arange(n) % 8 == 0, "grade": grade}
+        {
+            "lot": [f"L{i:04d}" for i in range(n)],
+            "x1": x1,
+            "x2": x2,
+            "block": rng.choice(["B01", "B02"], n),
+            "holdout": np.arange(n) % 8 == 0,
+            "grade": grade,
+        }
     )
     path = tmp_path / "d.parquet"
     frame.to_parquet(path)
@@ -77,7 +83,9 @@ def _run(args):
 def test_missing_file_exit_2_one_line(tmp_path):
     r = _run(["scan", str(tmp_path / "nope.parquet"), "--label", "grade", "--out", str(tmp_path / "o")])
     assert r.returncode == 2
-    assert r.stderr.strip().splitlines() == [f"holdfast: error: {tmp_path / 'nope.parquet'}: data file not found"]
+    assert r.stderr.strip().splitlines() == [
+        f"holdfast: error: {tmp_path / 'nope.parquet'}: data file not found"
+    ]
 
 
 def test_missing_label_column_exit_2(data, tmp_path):

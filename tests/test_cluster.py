@@ -17,8 +17,9 @@ distributed = pytest.importorskip("distributed")
 def cluster():
     from distributed import LocalCluster
 
-    with LocalCluster(n_workers=2, threads_per_worker=1, host="127.0.0.1", dashboard_address=None,
-                      processes=True) as c:
+    with LocalCluster(
+        n_workers=2, threads_per_worker=1, host="127.0.0.1", dashboard_address=None, processes=True
+    ) as c:
         yield c
 
 
@@ -31,8 +32,13 @@ def test_dask_scheduler_matches_in_process(cluster):
     model = learner.fit(X, y)
     local = exact_loo(model, learner.refit_problem())
     seen: list[int] = []
-    remote = exact_loo(model, learner.refit_problem(), backend="dask", scheduler=cluster.scheduler_address,
-                       progress=lambda done, total, eta: seen.append(done))
+    remote = exact_loo(
+        model,
+        learner.refit_problem(),
+        backend="dask",
+        scheduler=cluster.scheduler_address,
+        progress=lambda done, total, eta: seen.append(done),
+    )
     assert np.array_equal(local.loo_code, remote.loo_code)
     assert np.array_equal(local.flip_count, remote.flip_count)
     assert seen[-1] == int(model.support.sum())
@@ -45,5 +51,5 @@ def test_unreachable_scheduler_is_a_user_error():
     y = (y == 0).astype(np.int64)
     learner = SVMLearner(kernel="linear", C=1.0)
     model = learner.fit(StandardScaler().fit_transform(X), y)
-    with pytest.raises(UserError, match="127.0.0.1:1"):
+    with pytest.raises(UserError, match=r"127\.0\.0\.1:1"):
         exact_loo(model, learner.refit_problem(), backend="dask", scheduler="tcp://127.0.0.1:1")

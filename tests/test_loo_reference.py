@@ -22,8 +22,15 @@ from holdfast.learners.svm import SVMLearner
 
 def _reference_loo(X, y, learner: SVMLearner) -> np.ndarray:
     """Full refit per row with scikit-learn's LeaveOneOut, same frozen gamma and tolerance."""
-    est = SVC(kernel=learner.kernel, C=learner.C, gamma=learner.gamma_, degree=learner.degree,
-              coef0=learner.coef0, tol=learner.tol, class_weight=learner.class_weight_)
+    est = SVC(
+        kernel=learner.kernel,
+        C=learner.C,
+        gamma=learner.gamma_,
+        degree=learner.degree,
+        coef0=learner.coef0,
+        tol=learner.tol,
+        class_weight=learner.class_weight_,
+    )
     return cross_val_predict(est, X, y, cv=LeaveOneOut(), n_jobs=1)
 
 
@@ -32,8 +39,15 @@ def _reference_flips(X, y, learner: SVMLearner, full_pred: np.ndarray, rows: np.
     out = []
     for r in rows:
         keep = np.delete(np.arange(len(y)), r)
-        est = SVC(kernel=learner.kernel, C=learner.C, gamma=learner.gamma_, degree=learner.degree,
-                  coef0=learner.coef0, tol=learner.tol, class_weight=learner.class_weight_)
+        est = SVC(
+            kernel=learner.kernel,
+            C=learner.C,
+            gamma=learner.gamma_,
+            degree=learner.degree,
+            coef0=learner.coef0,
+            tol=learner.tol,
+            class_weight=learner.class_weight_,
+        )
         pred = est.fit(X[keep], y[keep]).predict(X)
         changed = pred != full_pred
         changed[r] = False

@@ -36,7 +36,11 @@ def test_preparation_scales_on_training_rows_and_one_hot_encodes():
     p = prepare(f, _spec(id="lot", split="held"))
     assert p.features == ["size", "firm", "variety", "bruised"]
     assert p.feature_names[:3] == ["size", "firm", "bruised"]
-    assert [n for n in p.feature_names if n.startswith("variety=")] == ["variety=Fuji", "variety=Gala", "variety=Jonagold"]
+    assert [n for n in p.feature_names if n.startswith("variety=")] == [
+        "variety=Fuji",
+        "variety=Gala",
+        "variety=Jonagold",
+    ]
     train = p.X[p.train]
     np.testing.assert_allclose(train[:, :3].mean(axis=0), 0, atol=1e-12)  # scaled on training rows only
     np.testing.assert_allclose(train[:, :3].std(axis=0), 1, atol=1e-12)
@@ -51,10 +55,18 @@ def test_preparation_scales_on_training_rows_and_one_hot_encodes():
         (lambda f: f, {"label": "grad"}, r"d.parquet: no column 'grad' \(label\); did you mean 'grade'\?"),
         (lambda f: f.assign(grade="premium"), {}, r"label column 'grade' has one class only"),
         (lambda f: f.assign(size=f["size"].where(f.index != 3)), {}, r"feature column 'size' has 1 NaN"),
-        (lambda f: f.assign(firm=f["firm"].where(f.index != 5, np.inf)), {}, r"feature column 'firm' has 1 infinite"),
+        (
+            lambda f: f.assign(firm=f["firm"].where(f.index != 5, np.inf)),
+            {},
+            r"feature column 'firm' has 1 infinite",
+        ),
         (lambda f: f.assign(lot="same"), {"id": "lot"}, r"id column 'lot' repeats id 'same'"),
         (lambda f: f.assign(held="yes"), {"split": "held"}, r"split column 'held' must be boolean"),
-        (lambda f: f.assign(grade=f["grade"].where(f.index != 2)), {}, r"label column 'grade' is empty at row 2"),
+        (
+            lambda f: f.assign(grade=f["grade"].where(f.index != 2)),
+            {},
+            r"label column 'grade' is empty at row 2",
+        ),
         (lambda f: f, {"features": ["size", "colour"]}, r"no column 'colour' \(feature\)"),
     ],
 )

@@ -46,7 +46,10 @@ def test_fingerprint_ignores_run_but_not_learner():
 @pytest.mark.parametrize(
     ("text", "expected"),
     [
-        (GOOD.replace("kernel =", "kernal ="), r"s.toml: unknown key 'learner.kernal'; did you mean 'kernel'\?"),
+        (
+            GOOD.replace("kernel =", "kernal ="),
+            r"s.toml: unknown key 'learner.kernal'; did you mean 'kernel'\?",
+        ),
         (GOOD.replace("[prepare]", "[prepar]"), r"unknown key 'prepar'; did you mean 'prepare'\?"),
         (GOOD.replace("label =", "lable ="), r"missing required key 'data.label'"),
         (GOOD.replace("C = 2", "c = 2"), r"unknown key 'learner.c'; did you mean 'C'\?"),

@@ -57,7 +57,7 @@ class ProgressBar:
 
 
 def _fmt_seconds(s: float) -> str:
-    s = max(0, int(round(s)))
+    s = max(0, round(s))
     return f"{s // 60}m{s % 60:02d}s" if s >= 60 else f"{s}s"
 
 
@@ -93,7 +93,12 @@ def cmd_scan(args: argparse.Namespace) -> int:
         from holdfast.export import read_decisions
 
         decisions = read_decisions(args.decisions)  # read first: a bad file fails before the scan
-    scan = run_scan(args.data, spec, progress=None if args.quiet else ProgressBar(), use_cache=False if args.no_cache else None)
+    scan = run_scan(
+        args.data,
+        spec,
+        progress=None if args.quiet else ProgressBar(),
+        use_cache=False if args.no_cache else None,
+    )
     rows_path, summary_path = scan.findings.write(out)
     print(f"{args.data}: {'from cache; ' if scan.from_cache else ''}wrote {rows_path} and {summary_path}")
     print(summary_text(scan.findings.summary))
@@ -116,11 +121,18 @@ def cmd_demo(args: argparse.Namespace) -> int:
     print(f"demo data: {data_path}\ndemo spec: {spec_path}", file=sys.stderr)
     if args.no_ui:
         ns = argparse.Namespace(
-            data=str(data_path), spec=str(spec_path), label=None, jobs=args.jobs, out=str(folder / "results"),
-            quiet=False, no_cache=False,
+            data=str(data_path),
+            spec=str(spec_path),
+            label=None,
+            jobs=args.jobs,
+            out=str(folder / "results"),
+            quiet=False,
+            no_cache=False,
         )
         return cmd_scan(ns)
-    ns = argparse.Namespace(data=str(data_path), spec=str(spec_path), label=None, jobs=args.jobs, session=None)
+    ns = argparse.Namespace(
+        data=str(data_path), spec=str(spec_path), label=None, jobs=args.jobs, session=None
+    )
     return cmd_open(ns)
 
 
@@ -135,7 +147,11 @@ def cmd_export(args: argparse.Namespace) -> int:
     from holdfast.exporting import export_session
 
     written = export_session(
-        Path(args.session), decisions=args.to, cleaned=args.cleaned, report=args.report, force=args.force,
+        Path(args.session),
+        decisions=args.to,
+        cleaned=args.cleaned,
+        report=args.report,
+        force=args.force,
         progress=ProgressBar(),
     )
     for path in written:
@@ -155,7 +171,9 @@ def build_parser() -> argparse.ArgumentParser:
     def data_args(sp: argparse.ArgumentParser) -> None:
         sp.add_argument("data", help="the data set: a Parquet file (or CSV)")
         sp.add_argument("--spec", help="model spec (TOML)")
-        sp.add_argument("--label", help="label column, when there is no spec (SVM, RBF kernel, C=1, gamma=scale)")
+        sp.add_argument(
+            "--label", help="label column, when there is no spec (SVM, RBF kernel, C=1, gamma=scale)"
+        )
         sp.add_argument("--jobs", type=int, help="parallel refits: a positive number or -1 for all cores")
 
     sp = sub.add_parser("scan", help="headless: fit, exact LOO over the support rows, write results")
@@ -176,7 +194,9 @@ def build_parser() -> argparse.ArgumentParser:
     sp.set_defaults(func=cmd_open)
 
     sp = sub.add_parser("demo", help="write the fruit-packhouse demo data set and open the inspector on it")
-    sp.add_argument("--dir", default="holdfast-demo", help="folder for the demo files (default: ./holdfast-demo)")
+    sp.add_argument(
+        "--dir", default="holdfast-demo", help="folder for the demo files (default: ./holdfast-demo)"
+    )
     sp.add_argument("--no-ui", action="store_true", help="run the headless scan instead of the inspector")
     sp.add_argument("--jobs", type=int, help="parallel refits")
     sp.set_defaults(func=cmd_demo)
@@ -184,7 +204,9 @@ def build_parser() -> argparse.ArgumentParser:
     sp = sub.add_parser("export", help="export decisions, the cleaned data set or a report from a session")
     sp.add_argument("session", help="the session's decisions journal (.db)")
     sp.add_argument("--to", help="decisions file (.parquet or .csv)")
-    sp.add_argument("--cleaned", help="cleaned data set (.parquet or .csv): relabels applied, exclusions removed")
+    sp.add_argument(
+        "--cleaned", help="cleaned data set (.parquet or .csv): relabels applied, exclusions removed"
+    )
     sp.add_argument("--report", help="report (.md) with images beside it")
     sp.add_argument("--force", action="store_true", help="overwrite existing files")
     sp.set_defaults(func=cmd_export)
@@ -204,14 +226,19 @@ def main(argv: list[str] | None = None) -> int:
         print(f"holdfast: error: {exc}", file=sys.stderr)
         return 2
     except (Cancelled, KeyboardInterrupt):
-        print("holdfast: cancelled; finished refits are kept and the next run resumes from them", file=sys.stderr)
+        print(
+            "holdfast: cancelled; finished refits are kept and the next run resumes from them",
+            file=sys.stderr,
+        )
         return 130
-    except Exception as exc:  # noqa: BLE001 - the last line of defence: one line, exit 1
+    except Exception as exc:
         if os.environ.get("HOLDFAST_DEBUG"):
             raise
         first = str(exc).splitlines()[0] if str(exc) else ""
-        print(f"holdfast: internal error: {exc.__class__.__name__}: {first} (HOLDFAST_DEBUG=1 shows more)",
-              file=sys.stderr)
+        print(
+            f"holdfast: internal error: {exc.__class__.__name__}: {first} (HOLDFAST_DEBUG=1 shows more)",
+            file=sys.stderr,
+        )
         return 1
 
 

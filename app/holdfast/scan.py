@@ -64,8 +64,14 @@ def analyse(
         store = store_factory(support_key(model))
     try:
         loo: LooResult = exact_loo(
-            model, learner.refit_problem(), jobs=spec.run.jobs, backend=spec.run.backend,
-            scheduler=spec.run.scheduler, store=store, progress=progress, should_cancel=should_cancel,
+            model,
+            learner.refit_problem(),
+            jobs=spec.run.jobs,
+            backend=spec.run.backend,
+            scheduler=spec.run.scheduler,
+            store=store,
+            progress=progress,
+            should_cancel=should_cancel,
         )
     finally:
         if store is not None:
@@ -74,7 +80,12 @@ def analyse(
     held_decision = learner.decision(prepared.X[held_idx]) if len(held_idx) else None
     held_pred = learner.predict(prepared.X[held_idx]) if len(held_idx) else np.empty(0, dtype=np.int64)
     findings = build_findings(
-        prepared, spec, model, loo, held_pred=held_pred, held_decision=held_decision,
+        prepared,
+        spec,
+        model,
+        loo,
+        held_pred=held_pred,
+        held_decision=held_decision,
         seconds=time.monotonic() - start,
     )
     flips = {int(train_idx[r]): train_idx[v] for r, v in loo.flipped.items()}
@@ -101,7 +112,11 @@ def _read_cached(folder: Path, prepared: Prepared, spec: Spec, data_path: Path) 
     summary["data"]["path"] = str(data_path)
     return Scan(
         findings=Findings(rows=rows, summary=summary, classes=[str(c) for c in prepared.classes]),
-        prepared=prepared, data_path=data_path, spec=spec, flips=flips, from_cache=True,
+        prepared=prepared,
+        data_path=data_path,
+        spec=spec,
+        flips=flips,
+        from_cache=True,
     )
 
 
@@ -145,17 +160,20 @@ def run_scan(
 def summary_text(summary: dict[str, Any]) -> str:
     """A short human summary for the terminal."""
     b = summary["bounds"]
-    lines = [
-        f"rows (training)    {summary['m']}" + (f"   held out {summary['held_out']['n']}" if summary.get("held_out") else ""),
-        f"support rows d     {summary['d']}  ({summary['bounded']} bounded, {summary['d'] - summary['bounded']} free)",
-        f"training errors    {summary['training_errors']}",
-        f"LOO errors         {summary['loo_errors']}  ({'exact' if summary['loo_exact'] else 'approximate'})",
+    held = summary.get("held_out")
+    free = summary["d"] - summary["bounded"]
+    kind = "exact" if summary["loo_exact"] else "approximate"
+    pairs: list[tuple[str, str]] = [
+        ("rows (training)", f"{summary['m']}" + (f"   held out {held['n']}" if held else "")),
+        ("support rows d", f"{summary['d']}  ({summary['bounded']} bounded, {free} free)"),
+        ("training errors", f"{summary['training_errors']}"),
+        ("LOO errors", f"{summary['loo_errors']}  ({kind})"),
     ]
     for key in ("support_fraction", "loo_bound", "xi_alpha", "span", "compression", "test_set"):
         if key in b:
             item = b[key]
-            lines.append(f"{item['name']:<19}{item['value']:.4f}   {item.get('note', '')}".rstrip())
-    if summary.get("held_out"):
-        h = summary["held_out"]
-        lines.append(f"held-out errors    {h['errors']} of {h['n']}  ({h['error_rate']:.4f})")
-    return "\n".join(lines)
+            pairs.append((item["name"], f"{item['value']:.4f}   {item.get('note', '')}".rstrip()))
+    if held:
+        pairs.append(("held-out errors", f"{held['errors']} of {held['n']}  ({held['error_rate']:.4f})"))
+    width = max(len(name) for name, _ in pairs) + 2
+    return "\n".join(f"{name:<{width}}{value}" for name, value in pairs)

@@ -10,7 +10,6 @@ from __future__ import annotations
 import argparse
 import time
 
-import numpy as np
 from sklearn.datasets import load_breast_cancer
 from sklearn.model_selection import LeaveOneOut, cross_val_predict
 from sklearn.preprocessing import StandardScaler

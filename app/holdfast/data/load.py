@@ -27,10 +27,7 @@ def read_table(path: str | Path) -> pd.DataFrame:
         raise DataError(f"{p}: is a folder, expected a Parquet or CSV file")
     suffix = p.suffix.lower()
     try:
-        if suffix == ".csv":
-            table = pacsv.read_csv(p)
-        else:
-            table = pq.read_table(p)
+        table = pacsv.read_csv(p) if suffix == ".csv" else pq.read_table(p)
     except (pa.ArrowInvalid, pa.ArrowIOError, OSError) as exc:
         kind = "CSV" if suffix == ".csv" else "Parquet"
         first = str(exc).splitlines()[0] if str(exc) else exc.__class__.__name__

@@ -50,7 +50,11 @@ class Prepared:
 
 def _missing_column(name: str, role: str, frame: pd.DataFrame, source: str) -> DataError:
     near = difflib.get_close_matches(name, [str(c) for c in frame.columns], n=1, cutoff=0.5)
-    hint = f"; did you mean '{near[0]}'?" if near else f"; columns are: {', '.join(map(str, frame.columns[:12]))}"
+    hint = (
+        f"; did you mean '{near[0]}'?"
+        if near
+        else f"; columns are: {', '.join(map(str, frame.columns[:12]))}"
+    )
     return DataError(f"{source}: no column '{name}' ({role}){hint}")
 
 
@@ -79,7 +83,9 @@ def prepare(frame: pd.DataFrame, spec: Spec, source: str = "<data>") -> Prepared
         elif pd.api.types.is_integer_dtype(s) and set(pd.unique(s)) <= {0, 1}:
             held = s.to_numpy() == 1
         else:
-            raise DataError(f"{source}: split column '{d.split}' must be boolean (true = held out), got {s.dtype}")
+            raise DataError(
+                f"{source}: split column '{d.split}' must be boolean (true = held out), got {s.dtype}"
+            )
         train = ~held
     else:
         train = np.ones(n, dtype=bool)
@@ -96,7 +102,9 @@ def prepare(frame: pd.DataFrame, spec: Spec, source: str = "<data>") -> Prepared
         dup = pd.Series(ids).duplicated()
         if dup.any():
             first = int(np.flatnonzero(dup.to_numpy())[0])
-            raise DataError(f"{source}: id column '{d.id}' repeats id '{ids[first]}' (row {first}); ids must be unique")
+            raise DataError(
+                f"{source}: id column '{d.id}' repeats id '{ids[first]}' (row {first}); ids must be unique"
+            )
     else:
         ids = np.array([str(i) for i in range(n)], dtype=object)
 
@@ -109,7 +117,9 @@ def prepare(frame: pd.DataFrame, spec: Spec, source: str = "<data>") -> Prepared
     classes = sorted(pd.unique(train_labels).tolist(), key=lambda v: (str(type(v)), v))
     if len(classes) < 2:
         only = classes[0] if classes else "none"
-        raise DataError(f"{source}: label column '{d.label}' has one class only ({only!r}) in the training rows")
+        raise DataError(
+            f"{source}: label column '{d.label}' has one class only ({only!r}) in the training rows"
+        )
     code_of = {c: i for i, c in enumerate(classes)}
     y = np.array([code_of.get(v, -1) for v in lab.tolist()], dtype=np.int64)
 
@@ -130,7 +140,9 @@ def prepare(frame: pd.DataFrame, spec: Spec, source: str = "<data>") -> Prepared
         if _is_numeric(s):
             numeric.append(f)
         elif pd.api.types.is_datetime64_any_dtype(s) or pd.api.types.is_timedelta64_dtype(s):
-            raise DataError(f"{source}: feature column '{f}' holds dates/times; convert it to numbers or leave it out")
+            raise DataError(
+                f"{source}: feature column '{f}' holds dates/times; convert it to numbers or leave it out"
+            )
         else:
             if spec.prepare.categorical == "error":
                 raise DataError(
@@ -165,8 +177,8 @@ def prepare(frame: pd.DataFrame, spec: Spec, source: str = "<data>") -> Prepared
         levels = sorted(set(text[train].tolist()))
         if len(levels) > 100 and len(levels) > 0.5 * int(train.sum()):
             raise DataError(
-                f"{source}: feature column '{f}' has {len(levels)} distinct text values and looks like an id; "
-                f"set it as data.id or leave it out of data.features"
+                f"{source}: feature column '{f}' has {len(levels)} distinct text values and looks like "
+                f"an id; set it as data.id or leave it out of data.features"
             )
         categories[f] = levels
         onehot = (text[:, None] == np.array(levels, dtype=object)[None, :]).astype(np.float64)
@@ -176,7 +188,18 @@ def prepare(frame: pd.DataFrame, spec: Spec, source: str = "<data>") -> Prepared
     if X.shape[1] == 0:
         raise DataError(f"{source}: no usable feature columns")
     return Prepared(
-        frame=frame, X=np.ascontiguousarray(X), feature_names=names, features=features, numeric=numeric,
-        categorical=categorical, y=y, classes=classes, ids=ids, train=train, label_column=d.label,
-        id_column=d.id, split_column=d.split, categories=categories,
+        frame=frame,
+        X=np.ascontiguousarray(X),
+        feature_names=names,
+        features=features,
+        numeric=numeric,
+        categorical=categorical,
+        y=y,
+        classes=classes,
+        ids=ids,
+        train=train,
+        label_column=d.label,
+        id_column=d.id,
+        split_column=d.split,
+        categories=categories,
     )

@@ -174,7 +174,9 @@ def parse_spec(table: dict[str, Any], source: str = "<spec>") -> Spec:
             raise _unknown("prepare.", key, PREPARE_KEYS, source)
     prepare = PrepareSpec(
         scale=_choice(prep.get("scale", "standard"), ("standard", "none"), "prepare.scale", source),
-        categorical=_choice(prep.get("categorical", "onehot"), ("onehot", "error"), "prepare.categorical", source),
+        categorical=_choice(
+            prep.get("categorical", "onehot"), ("onehot", "error"), "prepare.categorical", source
+        ),
     )
 
     learner = dict(table.get("learner", {}))

@@ -18,6 +18,9 @@ import numpy as np
 from holdfast import __version__
 from holdfast.learners.base import RefitOutcome
 
+#: Bump when the cached findings change shape (new columns or summary keys), so old caches are not reused.
+CACHE_FORMAT = 2
+
 
 def cache_root() -> Path:
     """The folder holding all scan caches."""
@@ -30,7 +33,7 @@ def cache_root() -> Path:
 
 def cache_dir(data_fingerprint: str, spec_fingerprint: str, root: Path | None = None) -> Path:
     """The cache folder of one data set + spec."""
-    return (root or cache_root()) / f"{data_fingerprint}-{spec_fingerprint}-v{__version__}"
+    return (root or cache_root()) / f"{data_fingerprint}-{spec_fingerprint}-v{__version__}-f{CACHE_FORMAT}"
 
 
 class RefitStore:
@@ -44,7 +47,8 @@ class RefitStore:
         self.conn.execute("PRAGMA journal_mode=WAL")
         self.conn.execute("CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value TEXT)")
         self.conn.execute(
-            "CREATE TABLE IF NOT EXISTS refits (row INTEGER PRIMARY KEY, loo INTEGER, max_change REAL, flipped TEXT)"
+            "CREATE TABLE IF NOT EXISTS refits "
+            "(row INTEGER PRIMARY KEY, loo INTEGER, max_change REAL, flipped TEXT)"
         )
         old = self.conn.execute("SELECT value FROM meta WHERE key='support_key'").fetchone()
         if old is None or old[0] != support_key:
@@ -56,9 +60,13 @@ class RefitStore:
     def load(self) -> dict[int, RefitOutcome]:
         """All refits stored so far."""
         out: dict[int, RefitOutcome] = {}
-        for row, loo, change, flipped in self.conn.execute("SELECT row, loo, max_change, flipped FROM refits"):
+        for row, loo, change, flipped in self.conn.execute(
+            "SELECT row, loo, max_change, flipped FROM refits"
+        ):
             out[int(row)] = RefitOutcome(
-                row=int(row), loo_code=int(loo), flipped=np.array(json.loads(flipped), dtype=np.int64),
+                row=int(row),
+                loo_code=int(loo),
+                flipped=np.array(json.loads(flipped), dtype=np.int64),
                 max_change=float("inf") if change is None else float(change),
             )
         return out
@@ -69,8 +77,12 @@ class RefitStore:
             self.conn.executemany(
                 "INSERT OR REPLACE INTO refits VALUES (?, ?, ?, ?)",
                 [
-                    (o.row, o.loo_code, None if not np.isfinite(o.max_change) else o.max_change,
-                     json.dumps(o.flipped.tolist()))
+                    (
+                        o.row,
+                        o.loo_code,
+                        None if not np.isfinite(o.max_change) else o.max_change,
+                        json.dumps(o.flipped.tolist()),
+                    )
                     for o in outcomes
                 ],
             )

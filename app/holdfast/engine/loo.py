@@ -86,7 +86,12 @@ def exact_loo(
     if progress is not None:
         progress(len(done), total, None)
     run_refits(
-        problem, todo, jobs=jobs, backend=backend, scheduler=scheduler, on_results=on_results,
+        problem,
+        todo,
+        jobs=jobs,
+        backend=backend,
+        scheduler=scheduler,
+        on_results=on_results,
         should_cancel=should_cancel,
     )
 
@@ -104,6 +109,11 @@ def exact_loo(
         if len(o.flipped):
             flipped[int(r)] = o.flipped
     return LooResult(
-        loo_code=loo_code, flip_count=flip_count, essential=essential, max_change=max_change, flipped=flipped,
-        refits=total - resumed, resumed=resumed,
+        loo_code=loo_code,
+        flip_count=flip_count,
+        essential=essential,
+        max_change=max_change,
+        flipped=flipped,
+        refits=total - resumed,
+        resumed=resumed,
     )

@@ -45,7 +45,9 @@ def validate_svm_params(table: dict[str, Any], source: str) -> dict[str, Any]:
     """Validate the ``[learner]`` table of the svm family and fill in defaults."""
     out = {"family": "svm", **DEFAULTS, **{k: v for k, v in table.items() if k != "family"}}
     if out["kernel"] not in KERNELS:
-        raise SpecError(f"{source}: 'learner.kernel' must be one of {' | '.join(KERNELS)}, got {out['kernel']!r}")
+        raise SpecError(
+            f"{source}: 'learner.kernel' must be one of {' | '.join(KERNELS)}, got {out['kernel']!r}"
+        )
     c = out["C"]
     if isinstance(c, bool) or not isinstance(c, int | float) or not c > 0 or not np.isfinite(c):
         raise SpecError(f"{source}: 'learner.C' must be a positive number, got {c!r}")
@@ -53,9 +55,13 @@ def validate_svm_params(table: dict[str, Any], source: str) -> dict[str, Any]:
     g = out["gamma"]
     if isinstance(g, str):
         if g not in ("scale", "auto"):
-            raise SpecError(f"{source}: 'learner.gamma' must be \"scale\", \"auto\" or a positive number, got {g!r}")
+            raise SpecError(
+                f'{source}: \'learner.gamma\' must be "scale", "auto" or a positive number, got {g!r}'
+            )
     elif isinstance(g, bool) or not isinstance(g, int | float) or not g > 0 or not np.isfinite(g):
-        raise SpecError(f"{source}: 'learner.gamma' must be \"scale\", \"auto\" or a positive number, got {g!r}")
+        raise SpecError(
+            f'{source}: \'learner.gamma\' must be "scale", "auto" or a positive number, got {g!r}'
+        )
     else:
         out["gamma"] = float(g)
     d = out["degree"]
@@ -67,7 +73,7 @@ def validate_svm_params(table: dict[str, Any], source: str) -> dict[str, Any]:
     out["coef0"] = float(c0)
     if out["class_weight"] not in ("none", "balanced"):
         raise SpecError(
-            f"{source}: 'learner.class_weight' must be \"none\" or \"balanced\", got {out['class_weight']!r}"
+            f'{source}: \'learner.class_weight\' must be "none" or "balanced", got {out["class_weight"]!r}'
         )
     t = out["tol"]
     if isinstance(t, bool) or not isinstance(t, int | float) or not 0 < t < 1:
@@ -87,7 +93,9 @@ def resolve_gamma(gamma: str | float, X: np.ndarray) -> float:
     return float(gamma)
 
 
-def kernel_matrix(A: np.ndarray, B: np.ndarray, kernel: str, gamma: float, degree: int, coef0: float) -> np.ndarray:
+def kernel_matrix(
+    A: np.ndarray, B: np.ndarray, kernel: str, gamma: float, degree: int, coef0: float
+) -> np.ndarray:
     """Kernel values K(a, b): linear <a,b>; rbf exp(-gamma |a-b|^2); poly (gamma <a,b> + coef0)^degree."""
     if kernel == "linear":
         return A @ B.T
@@ -214,7 +222,10 @@ class SVMRefitProblem:
         changed[row] = False
         max_change = float(np.max(np.abs(dec - self.full_decision))) if dec is not None else float("inf")
         return RefitOutcome(
-            row=row, loo_code=int(pred[row]), flipped=np.flatnonzero(changed).astype(np.int64), max_change=max_change
+            row=row,
+            loo_code=int(pred[row]),
+            flipped=np.flatnonzero(changed).astype(np.int64),
+            max_change=max_change,
         )
 
 
@@ -260,15 +271,25 @@ class SVMLearner:
         self.gamma_ = gamma
         self.class_weight_ = weights
         self.X_train_ = X
-        svc_params: dict[str, Any] = {"C": self.C, "tol": self.tol, "class_weight": weights, "cache_size": 500}
+        svc_params: dict[str, Any] = {
+            "C": self.C,
+            "tol": self.tol,
+            "class_weight": weights,
+            "cache_size": 500,
+        }
         K = None
         if m <= self.precompute_max_rows:
             K = kernel_matrix(X, X, self.kernel, gamma, self.degree, self.coef0)
         else:
             svc_params.update(kernel=self.kernel, gamma=gamma, degree=self.degree, coef0=self.coef0)
         problem = SVMRefitProblem(
-            y=y, n_classes=n_classes, svc_params=svc_params, full_prediction=np.empty(0), full_decision=np.empty(0),
-            K=K, X=None if K is not None else X,
+            y=y,
+            n_classes=n_classes,
+            svc_params=svc_params,
+            full_prediction=np.empty(0),
+            full_decision=np.empty(0),
+            K=K,
+            X=None if K is not None else X,
         )
         if K is not None:
             clf = SVC(kernel="precomputed", **svc_params).fit(K, y)
@@ -281,7 +302,9 @@ class SVMLearner:
         problem.full_decision = decision
         if K is not None and n_classes == 2 and self.working_set:
             ypm = np.where(y == 1, 1.0, -1.0)
-            near = np.flatnonzero((ypm * decision < 1.0 + WORKING_SET_SLACK) | np.isin(np.arange(m), clf.support_))
+            near = np.flatnonzero(
+                (ypm * decision < 1.0 + WORKING_SET_SLACK) | np.isin(np.arange(m), clf.support_)
+            )
             if len(near) < 0.8 * m:
                 problem.working = near
         self.problem_ = problem
