@@ -17,8 +17,12 @@ def launch(data_path: Path, spec: Spec, session: Path | None = None) -> int:
     starts. Warnings about a journal made for other data or another spec are shown inside the UI.
     Returns the exit code (0). Raises UserError subclasses for a missing data file or a bad session file.
     """
+    from holdfast.data.load import read_table
+    from holdfast.data.prepare import prepare
     from holdfast.ui.app import HoldfastApp
 
+    # A wrong file, column or spec value is a one-line error on the command line (exit 2), not a screen.
+    prepare(read_table(data_path), spec, source=str(data_path))
     opened = open_session(data_path, spec, session)
     if opened.location_note:
         print(f"holdfast: {opened.location_note}", file=sys.stderr)
