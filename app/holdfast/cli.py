@@ -66,10 +66,12 @@ def _load_spec(args: argparse.Namespace):
 
     if args.spec and args.label:
         raise UserError("give either --spec FILE or --label COLUMN, not both")
+    if getattr(args, "id", None) and not args.label:
+        raise UserError("--id goes with --label (a spec file names its id column in [data])")
     if args.spec:
         spec = load_spec(args.spec)
     elif args.label:
-        spec = default_spec(args.label)
+        spec = default_spec(args.label, id_column=getattr(args, "id", None))
     else:
         raise UserError("give --spec FILE (a TOML model spec) or --label COLUMN (SVM with RBF kernel, C=1)")
     if getattr(args, "jobs", None) is not None:
@@ -174,6 +176,7 @@ def build_parser() -> argparse.ArgumentParser:
         sp.add_argument(
             "--label", help="label column, when there is no spec (SVM, RBF kernel, C=1, gamma=scale)"
         )
+        sp.add_argument("--id", help="with --label: the id column (stable row ids)")
         sp.add_argument("--jobs", type=int, help="parallel refits: a positive number or -1 for all cores")
 
     sp = sub.add_parser("scan", help="headless: fit, exact LOO over the support rows, write results")

@@ -249,6 +249,7 @@ def spec_from_text(text: str, source: str = "<spec>") -> Spec:
     return parse_spec(table, source)
 
 
-def default_spec(label: str, *, jobs: int = 1) -> Spec:
+def default_spec(label: str, *, id_column: str | None = None, jobs: int = 1) -> Spec:
     """The spec used without a spec file: SVM, RBF kernel, C=1, gamma="scale"."""
-    return parse_spec({"data": {"label": label}, "run": {"jobs": jobs}}, source="--label")
+    data = {"label": label} if id_column is None else {"label": label, "id": id_column}
+    return parse_spec({"data": data, "run": {"jobs": jobs}}, source="--label")
