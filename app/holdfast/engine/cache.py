@@ -19,7 +19,7 @@ from holdfast import __version__
 from holdfast.learners.base import RefitOutcome
 
 #: Bump when the cached findings change shape (new columns or summary keys), so old caches are not reused.
-CACHE_FORMAT = 2
+CACHE_FORMAT = 3
 
 
 def cache_root() -> Path:
@@ -46,9 +46,13 @@ class RefitStore:
         self.conn = sqlite3.connect(path)
         self.conn.execute("PRAGMA journal_mode=WAL")
         self.conn.execute("CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value TEXT)")
+        columns = [r[1] for r in self.conn.execute("PRAGMA table_info(refits)")]
+        if columns and "loo_margin" not in columns:  # written before refits carried the LOO margin
+            with self.conn:
+                self.conn.execute("DROP TABLE refits")
         self.conn.execute(
             "CREATE TABLE IF NOT EXISTS refits "
-            "(row INTEGER PRIMARY KEY, loo INTEGER, max_change REAL, flipped TEXT)"
+            "(row INTEGER PRIMARY KEY, loo INTEGER, max_change REAL, flipped TEXT, loo_margin REAL)"
         )
         old = self.conn.execute("SELECT value FROM meta WHERE key='support_key'").fetchone()
         if old is None or old[0] != support_key:
@@ -60,14 +64,15 @@ class RefitStore:
     def load(self) -> dict[int, RefitOutcome]:
         """All refits stored so far."""
         out: dict[int, RefitOutcome] = {}
-        for row, loo, change, flipped in self.conn.execute(
-            "SELECT row, loo, max_change, flipped FROM refits"
+        for row, loo, change, flipped, margin in self.conn.execute(
+            "SELECT row, loo, max_change, flipped, loo_margin FROM refits"
         ):
             out[int(row)] = RefitOutcome(
                 row=int(row),
                 loo_code=int(loo),
                 flipped=np.array(json.loads(flipped), dtype=np.int64),
                 max_change=float("inf") if change is None else float(change),
+                loo_margin=float("nan") if margin is None else float(margin),
             )
         return out
 
@@ -75,13 +80,14 @@ class RefitStore:
         """Commit finished refits."""
         with self.conn:
             self.conn.executemany(
-                "INSERT OR REPLACE INTO refits VALUES (?, ?, ?, ?)",
+                "INSERT OR REPLACE INTO refits VALUES (?, ?, ?, ?, ?)",
                 [
                     (
                         o.row,
                         o.loo_code,
                         None if not np.isfinite(o.max_change) else o.max_change,
                         json.dumps(o.flipped.tolist()),
+                        None if not np.isfinite(o.loo_margin) else o.loo_margin,
                     )
                     for o in outcomes
                 ],

@@ -31,6 +31,9 @@ class LooResult:
     essential: np.ndarray
     max_change: np.ndarray
     flipped: dict[int, np.ndarray] = field(default_factory=dict)
+    #: y * f_{-i}(x_i) per row: the LOO decision value signed by the label (training margin outside the
+    #: refitted rows, whose removal leaves the model unchanged)
+    loo_margin: np.ndarray | None = None
     refits: int = 0
     resumed: int = 0
 
@@ -99,10 +102,12 @@ def exact_loo(
     flip_count = np.zeros(m, dtype=np.int64)
     essential = np.zeros(m, dtype=bool)
     max_change = np.full(m, np.nan)
+    loo_margin = np.asarray(model.margin, dtype=np.float64).copy()
     flipped: dict[int, np.ndarray] = {}
     for r in candidates:
         o = done[int(r)]
         loo_code[r] = o.loo_code
+        loo_margin[r] = o.loo_margin
         flip_count[r] = len(o.flipped)
         max_change[r] = o.max_change
         essential[r] = o.max_change > essential_tol or len(o.flipped) > 0 or o.loo_code != model.prediction[r]
@@ -114,6 +119,7 @@ def exact_loo(
         essential=essential,
         max_change=max_change,
         flipped=flipped,
+        loo_margin=loo_margin,
         refits=total - resumed,
         resumed=resumed,
     )

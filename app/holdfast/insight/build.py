@@ -14,8 +14,8 @@ from holdfast.data.spec import Spec
 from holdfast.engine.loo import LooResult
 from holdfast.findings import ROW_COLUMNS, Findings
 from holdfast.insight import bounds as B
-from holdfast.insight.flags import FLAG_REASONS, compute_flags
-from holdfast.insight.score import rank_rows, suspicion_score
+from holdfast.insight.flags import FLAG_REASONS, TWIN_TOL, compute_flags
+from holdfast.insight.score import multiscale_dissent, rank_rows, suspicion_score
 from holdfast.learners.base import FittedModel
 
 
@@ -27,7 +27,13 @@ def _class_values(prepared: Prepared, codes: np.ndarray) -> pd.Series:
 
 
 def neighbour_evidence(prepared: Prepared, k: int) -> pd.DataFrame:
-    """Neighbour dissent and twin conflicts for every training row (NaN/0 for held-out rows)."""
+    """Neighbour evidence for every training row (NaN/-1/0 for held-out rows).
+
+    ``neighbour_dissent`` and ``neighbour_majority``: share of the k nearest training rows with another
+    label, and their most common label; ``neighbour_dissent_avg``: the dissent averaged over
+    ``DISSENT_SCALES`` times k neighbours (k/2, k, 2k: less noisy than one k, used by the suspicion
+    score); ``twin_conflicts``: other rows within ``TWIN_TOL`` (near-identical) carrying another label.
+    """
     from holdfast.insight.neighbours import neighbour_dissent, twin_conflicts
 
     n = len(prepared.frame)
@@ -35,16 +41,31 @@ def neighbour_evidence(prepared: Prepared, k: int) -> pd.DataFrame:
     X = prepared.X[tr]
     y = prepared.y[tr]
     dissent = np.full(n, np.nan)
+    dissent_avg = np.full(n, np.nan)
     majority = np.full(n, -1, dtype=np.int64)
     twins = np.zeros(n, dtype=np.int64)
     if len(tr) > 1:
         nb = neighbour_dissent(X, y, k=k)
         dissent[tr] = nb.dissent
         majority[tr] = nb.majority
-        twins[tr] = twin_conflicts(X, y)
+        dissent_avg[tr] = multiscale_dissent(X, y, k)
+        twins[tr] = twin_conflicts(X, y, tol=TWIN_TOL)
     return pd.DataFrame(
-        {"neighbour_dissent": dissent, "neighbour_majority": majority, "twin_conflicts": twins}
+        {
+            "neighbour_dissent": dissent,
+            "neighbour_dissent_avg": dissent_avg,
+            "neighbour_majority": majority,
+            "twin_conflicts": twins,
+        }
     )
+
+
+def _loo_margin(model: FittedModel, loo: LooResult) -> np.ndarray:
+    """y * f_{-i}(x_i) of every training row; where the learner gave none, +-1 by the LOO prediction."""
+    signed = np.where(loo.loo_code == model.y, 1.0, -1.0)
+    if loo.loo_margin is None:
+        return signed
+    return np.where(np.isnan(loo.loo_margin), signed, loo.loo_margin)
 
 
 def build_rows(
@@ -75,7 +96,9 @@ def build_rows(
             mh = np.where(yh == 1, 1.0, -1.0) * held_decision
         else:
             own = held_decision[np.arange(len(held)), np.maximum(yh, 0)]
-            other = np.where(np.eye(held_decision.shape[1], dtype=bool)[np.maximum(yh, 0)], -np.inf, held_decision)
+            other = np.where(
+                np.eye(held_decision.shape[1], dtype=bool)[np.maximum(yh, 0)], -np.inf, held_decision
+            )
             mh = own - other.max(axis=1)
         margin[held] = np.where(known, mh, np.nan)
 
@@ -98,6 +121,7 @@ def build_rows(
             "bounded": spread(model.bounded, False, bool),
             "alpha": spread(model.alpha, 0.0, float),
             "margin": margin,
+            "loo_margin": spread(_loo_margin(model, loo), np.nan, float),
             "flip_count": spread(loo.flip_count, 0, np.int64),
             "held_out": ~prepared.train,
         }

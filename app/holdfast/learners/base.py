@@ -19,13 +19,16 @@ class RefitOutcome:
 
     ``row`` is the left-out training row (0-based among training rows); ``loo_code`` its predicted class
     code under the refit; ``flipped`` the other training rows whose predicted class changed;
-    ``max_change`` the largest absolute change of a training decision value.
+    ``max_change`` the largest absolute change of a training decision value; ``loo_margin`` the LOO
+    decision value of the left-out row signed by its label, y * f_{-i}(x_i) (own minus best other class
+    for more than two classes; NaN when the refit has no decision value for every class).
     """
 
     row: int
     loo_code: int
     flipped: np.ndarray
     max_change: float
+    loo_margin: float = float("nan")
 
 
 @dataclass

@@ -121,6 +121,15 @@ def submatrix(K: np.ndarray, keep: np.ndarray) -> np.ndarray:
     return K[np.ix_(keep, keep)]
 
 
+def row_margin(decision: np.ndarray | float, label: int) -> float:
+    """y * f(x) of one row: the two-class decision value signed by the label (+1 for class code 1), or
+    for more classes its own class's decision value minus the largest other one (as in ``fit``)."""
+    d = np.asarray(decision, dtype=np.float64)
+    if d.ndim == 0:
+        return float(d) if label == 1 else -float(d)
+    return float(d[label] - np.max(np.delete(d, label)))
+
+
 @dataclass
 class SVMRefitProblem:
     """Self-contained SVM training problem for refits without one row (picklable for joblib/dask)."""
@@ -226,6 +235,7 @@ class SVMRefitProblem:
             loo_code=int(pred[row]),
             flipped=np.flatnonzero(changed).astype(np.int64),
             max_change=max_change,
+            loo_margin=row_margin(dec[row], int(self.y[row])) if dec is not None else float("nan"),
         )
 
 
