@@ -53,11 +53,13 @@ class ScanCancelled(Message):
 
 @dataclass
 class DetailReady(Message):
-    """The row-detail precomputation finished (``context`` None when it failed: ``text`` says why)."""
+    """The row-detail precomputation finished (``context`` None when it failed: ``text`` says why),
+    with the margin histogram for the overview (None when it could not be made)."""
 
     context: Any
     text: str = ""
     generation: int = 0
+    margin_hist: Any = None
 
 
 @dataclass

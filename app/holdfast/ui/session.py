@@ -159,13 +159,14 @@ class DecisionBook:
 
     def __init__(self, journal: Journal, ids: Sequence[str]) -> None:
         self.journal = journal
-        self.ids = [str(i) for i in ids]
-        self.position = {rid: p for p, rid in enumerate(self.ids)}
+        self.ids = [i if isinstance(i, str) else str(i) for i in ids]
+        self.position = dict(zip(self.ids, range(len(self.ids)), strict=True))
         n = len(self.ids)
         self.kind = np.full(n, "", dtype=object)
         self.text = np.full(n, "", dtype=object)
         self.states: dict[int, Decision] = {}
         self.unmatched: list[str] = []
+        self._counts: dict[str, int] = dict.fromkeys(USER_DECISIONS, 0)
         self.reload()
 
     def reload(self) -> None:
@@ -174,6 +175,7 @@ class DecisionBook:
         self.text[:] = ""
         self.states = {}
         self.unmatched = []
+        self._counts = dict.fromkeys(USER_DECISIONS, 0)
         for rid, d in self.journal.current(include_notes_only=True).items():
             p = self.position.get(rid)
             if p is None:
@@ -182,13 +184,19 @@ class DecisionBook:
                 self._set(p, d)
 
     def _set(self, p: int, d: Decision | None) -> None:
+        old = self.kind[p]
+        if old:
+            self._counts[old] -= 1
         if d is None or (d.decision == "clear" and not d.note):
             self.states.pop(p, None)
             self.kind[p] = ""
             self.text[p] = ""
             return
         self.states[p] = d
-        self.kind[p] = "" if d.decision == "clear" else d.decision
+        new = "" if d.decision == "clear" else d.decision
+        self.kind[p] = new
+        if new:
+            self._counts[new] += 1
         self.text[p] = decision_text(d)
 
     def _apply(self, events: Iterable[Event]) -> np.ndarray:
@@ -220,11 +228,11 @@ class DecisionBook:
     @property
     def decided(self) -> int:
         """How many rows of the data carry a decision."""
-        return int(np.count_nonzero(self.kind != ""))
+        return sum(self._counts.values())
 
     def counts(self) -> dict[str, int]:
-        """Rows per decision (relabel, confirm, exclude, defer), zeros included."""
-        return {k: int(np.count_nonzero(self.kind == k)) for k in USER_DECISIONS}
+        """Rows per decision (relabel, confirm, exclude, defer), zeros included (kept up to date)."""
+        return dict(self._counts)
 
     def mask(self, decision: str) -> np.ndarray:
         """Boolean mask of the rows whose decision is ``decision`` (``""``: rows without a decision)."""

@@ -278,7 +278,7 @@ class InspectScreen(Screen[None]):
         self.scan: Any = None
         self.book: DecisionBook | None = None
         self.rows: pd.DataFrame | None = None
-        self.classes: list[str] = []
+        self.label_classes: list[str] = []
         self.labels: np.ndarray = np.empty(0, dtype=object)
         self.filter_key = "all"
         self._masks: dict[str, np.ndarray] = {}
@@ -345,7 +345,7 @@ class InspectScreen(Screen[None]):
         self.refresh_bindings()
         self._scan_worker(self._generation)
 
-    @work(thread=True, exclusive=True, exit_on_error=False, group="scan", name="scan")
+    @work(thread=True, exclusive=True, exit_on_error=False, group="scan", name="scan", description="scan")
     def _scan_worker(self, generation: int) -> None:
         from holdfast.scan import run_scan
 
@@ -420,9 +420,9 @@ class InspectScreen(Screen[None]):
         self._hide_progress()
         rows = scan.findings.rows
         self.rows = rows
-        self.classes = [str(c) for c in scan.findings.classes]
-        self.labels = np.array([str(v) for v in rows["label"].tolist()], dtype=object)
-        book = DecisionBook(self.context.session.journal, [str(v) for v in rows["id"].tolist()])
+        self.label_classes = [str(c) for c in scan.findings.classes]
+        self.labels = rows["label"].astype(str).to_numpy(dtype=object)
+        book = DecisionBook(self.context.session.journal, rows["id"].astype(str).to_numpy(dtype=object))
         self.book = book
         self._masks = {}
         frame = pd.DataFrame({spec.key: rows[spec.key] for spec in TABLE_COLUMNS if spec.key != "decision"})
@@ -431,7 +431,7 @@ class InspectScreen(Screen[None]):
         table.set_data(frame, list(TABLE_COLUMNS))
         table.sort_by("score", descending=True)
         table.move_cursor(0)
-        self.query_one(OverviewPanel).show(scan.findings.summary, self._margin_histogram(scan))
+        self.query_one(OverviewPanel).show(scan.findings.summary)  # the margin histogram follows
         self._detail_context = None
         self._detail_worker(scan, self._generation)
         if book.unmatched:
@@ -519,24 +519,38 @@ class InspectScreen(Screen[None]):
 
         rows = scan.findings.rows
         train = ~rows["held_out"].to_numpy(dtype=bool)
-        labels = np.array([str(v) for v in rows["label"].tolist()], dtype=object)
         classes = [str(c) for c in scan.findings.classes]
-        return histogram(rows["margin"].to_numpy()[train], bins=24, by=labels[train], groups=classes)
+        labels = pd.Categorical(rows["label"].astype(str)[train], categories=classes)
+        return histogram(rows["margin"].to_numpy()[train], bins=24, by=labels, groups=classes)
 
-    @work(thread=True, exclusive=True, exit_on_error=False, group="detail", name="detail")
+    @work(
+        thread=True,
+        exclusive=True,
+        exit_on_error=False,
+        group="detail",
+        name="detail",
+        description="row detail",
+    )
     def _detail_worker(self, scan: Any, generation: int) -> None:
+        """Precompute the row detail and the margin histogram off the UI thread."""
         from holdfast.insight.detail import DetailContext
 
         try:
+            hist = self._margin_histogram(scan)
+        except Exception:  # the overview is drawn without it
+            hist = None
+        try:
             context = DetailContext.from_scan(scan)
         except Exception as exc:  # shown in the UI; the table works without the detail
-            self.post_message(DetailReady(None, error_line(exc), generation))
+            self.post_message(DetailReady(None, error_line(exc), generation, hist))
             return
-        self.post_message(DetailReady(context, "", generation))
+        self.post_message(DetailReady(context, "", generation, hist))
 
     def on_detail_ready(self, message: DetailReady) -> None:
-        if message.generation != self._generation:
+        if message.generation != self._generation or self.scan is None:
             return
+        if message.margin_hist is not None:
+            self.query_one(OverviewPanel).show(self.scan.findings.summary, message.margin_hist)
         if message.context is None:
             self._set_message(f"Row detail not available: {message.text}", error=True)
             return
@@ -596,7 +610,7 @@ class InspectScreen(Screen[None]):
         if position is None:
             return
         current = self.labels[position]
-        others = [c for c in self.classes if c != current]
+        others = [c for c in self.label_classes if c != current]
         if len(others) == 1:
             self._decide([position], "relabel", others[0], advance=True)
             return
@@ -706,7 +720,7 @@ class InspectScreen(Screen[None]):
             self._set_message("No rows in this view.")
             return
         choices: list[tuple[str, str]] = [(d, d) for d in ("confirm", "exclude", "defer")]
-        choices += [(f"relabel:{c}", f"relabel → {c}") for c in self.classes]
+        choices += [(f"relabel:{c}", f"relabel → {c}") for c in self.label_classes]
         choices.append(("clear", "clear the decision"))
         title = f"One decision for all {n:,} rows in this view ({self._filter_title(self.filter_key)}):"
 
@@ -782,7 +796,7 @@ class InspectScreen(Screen[None]):
             mask = self._mask(key)
             count = self.table.row_count if mask is None else int(mask.sum())
             choices.append((key, f"{FILTERS[key]} ({count:,})"))
-        for c in self.classes:
+        for c in self.label_classes:
             choices.append((f"label:{c}", f"label {c} ({int(self._mask(f'label:{c}').sum()):,})"))  # type: ignore[union-attr]
         for d in USER_DECISIONS:
             choices.append((f"decision:{d}", f"decision {d} ({int(self.book.mask(d).sum()):,})"))
@@ -887,7 +901,9 @@ class InspectScreen(Screen[None]):
 
         self.app.push_screen(ExportDialog(self.context.data_path, unavailable=unavailable), chosen)
 
-    @work(thread=True, exclusive=True, exit_on_error=False, group="export", name="export")
+    @work(
+        thread=True, exclusive=True, exit_on_error=False, group="export", name="export", description="export"
+    )
     def _export_worker(self, request: ExportRequest, force: bool) -> None:
         try:
             text = self._export(request, force)
@@ -946,7 +962,14 @@ class InspectScreen(Screen[None]):
         self.refresh_bindings()
         self._what_if_worker()
 
-    @work(thread=True, exclusive=True, exit_on_error=False, group="what-if", name="what-if")
+    @work(
+        thread=True,
+        exclusive=True,
+        exit_on_error=False,
+        group="what-if",
+        name="what-if",
+        description="what-if",
+    )
     def _what_if_worker(self) -> None:
         from holdfast.insight.whatif import what_if  # type: ignore[import-not-found]
 
