@@ -98,8 +98,12 @@ async def test_sort_filter_move_and_jump(ds: DataSet) -> None:
         table = screen.table
         rows = screen.scan.findings.rows
 
-        await pilot.press("s")  # next column after score: flip count, largest first
-        assert table.sort_key == "flip_count" and table.sort_descending
+        await pilot.press("s")  # next column after score: flags, as text from A to Z
+        assert (table.sort_key, table.sort_descending) == ("flags", False)
+        expected = rows["flags"].astype(object).sort_values(kind="stable").index.tolist()
+        assert table.view_positions().tolist() == expected
+        await pilot.press("s")  # then flip count, largest first
+        assert (table.sort_key, table.sort_descending) == ("flip_count", True)
         expected = rows["flip_count"].sort_values(ascending=False, kind="stable").index.tolist()
         assert table.view_positions().tolist() == expected
         await pilot.press("o")
@@ -180,8 +184,8 @@ async def test_decisions_are_in_the_journal_before_the_table_shows_them(ds: Data
         await pilot.press("home", "r")
         p0 = int(order[0])
         other = "premium" if labels[p0] == "processing" else "processing"
-        assert table.cursor_index == 1  # a decision moves on to the next row
-        await pilot.press("c", "x", "d")
+        assert table.cursor_index == 0  # the cursor stays on the row decided on
+        await pilot.press("down", "c", "down", "x", "down", "d")
         p1, p2, p3 = (int(p) for p in order[1:4])
         state = current(ds)
         assert (state[ids[p0]].decision, state[ids[p0]].new_label) == ("relabel", other)
@@ -191,8 +195,7 @@ async def test_decisions_are_in_the_journal_before_the_table_shows_them(ds: Data
         assert [table.value("decision", p) for p in (p1, p2, p3)] == ["confirm", "exclude", "defer"]
         assert f"relabel → {other}" in screen_text(app)
 
-        await pilot.press("up")  # back on p3 (deferred): add a note
-        await pilot.press("n")
+        await pilot.press("n")  # still on p3 (deferred): add a note
         assert isinstance(app.screen, TextDialog)
         await pilot.press(*"seal torn", "enter")
         assert current(ds)[ids[p3]].note == "seal torn"
@@ -303,8 +306,8 @@ async def test_export_decisions_and_cleaned_data_from_the_ui(ds: DataSet, tmp_pa
         screen = await scanned(pilot)
         ids = screen.book.ids
         order = screen.table.view_positions()
-        await pilot.press("home", "r", "x", "c")
-        await pilot.press("up", "n", *"checked twice", "enter")
+        await pilot.press("home", "r", "down", "x", "down", "c")
+        await pilot.press("n", *"checked twice", "enter")
         assert app.screen is screen
         relabelled, excluded, confirmed = (ids[int(p)] for p in order[:3])
 
@@ -368,7 +371,7 @@ async def test_reopening_the_session_restores_the_decisions(ds: DataSet) -> None
     async with app.run_test(size=SIZE) as pilot:
         screen = await scanned(pilot)
         order = screen.table.view_positions()
-        await pilot.press("home", "x", "d", "up", "n", *"ask the grader", "enter")
+        await pilot.press("home", "x", "down", "d", "n", *"ask the grader", "enter")
         decided = {screen.book.ids[int(p)]: screen.table.value("decision", int(p)) for p in order[:2]}
         await pilot.press("ctrl+q")
     app.context.session.journal.close()
@@ -436,7 +439,6 @@ async def test_data_text_is_shown_literally(ds: DataSet) -> None:
         for row_id, shown in ((MARKUP_ID, MARKUP_ID), (ANSI_ID, "\\x1b[31mred\\x1b[0m")):
             assert screen.table.jump_to_id(row_id)
             await pilot.press("c")
-            await pilot.press("up")
             await pilot.pause(0.2)
             text = screen_text(app)
             assert f"Saved: {shown} confirm" in text  # the status message

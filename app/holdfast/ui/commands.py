@@ -42,6 +42,7 @@ SECTIONS: dict[str, str] = {
     "reverse": "View",
     "filter": "View",
     "overview": "View",
+    "toggle_detail": "View",
     "export": "Session",
     "what_if": "Session",
     "cancel": "Scan",

@@ -23,16 +23,21 @@ from holdfast.ui.textsafe import safe_text
 COLUMN_TITLES: dict[str, str] = {
     "id": "id",
     "label": "label",
-    "pred": "prediction",
     "LOO pred": "loo_prediction",
     "decision": "decision",
     "score": "score",
+    "flags": "flags",
     "flips": "flip_count",
     "margin": "margin",
     "alpha": "alpha",
     "supp": "support",
-    "flags": "flags",
+    "pred": "prediction",
 }
+TIPS = (
+    "Rows start with the most suspicious first (score, largest first). Click a column title to sort by it. "
+    "← and → scroll the table sideways; i hides the row detail so that every column fits; enter shows the "
+    "row detail full screen and v the whole overview (escape returns)."
+)
 DECISION_MEANING = (
     "your decision: relabel → new label, confirm (the label is right), exclude (leave the row out of the "
     "cleaned data), defer (decide later); ✎ = the row has a note"
@@ -56,6 +61,7 @@ class HelpScreen(ModalScreen[None]):
         with VerticalScroll(id="help-body"):
             yield Static("holdfast inspector: keys and what the screen shows", classes="help-title")
             yield Static(Text(safe_text(self.caution)), id="help-caution", classes="caution")
+            yield Static(Text(TIPS), id="help-tips")
             yield Static(self._keys(), id="help-keys")
             yield Static("Columns", classes="help-heading")
             yield Static(self._columns(), id="help-columns")
@@ -102,7 +108,7 @@ class HelpScreen(ModalScreen[None]):
         return (
             f"Every decision and note is written to the session file{where} before the table shows it. "
             "Undo and redo add new entries; nothing is ever deleted, so closing the app (ctrl+q) or a "
-            "crash loses nothing. After a decision on one row the cursor moves to the next row."
+            "crash loses nothing. The cursor stays on the row you decided on; ↓ moves on."
         )
 
     def action_close(self) -> None:

@@ -59,15 +59,15 @@ CAUTION = (
 TABLE_COLUMNS: tuple[ColumnSpec, ...] = (
     ColumnSpec("id", "id", None, "left"),
     ColumnSpec("label", "label", None, "left"),
-    ColumnSpec("prediction", "pred", None, "left"),
     ColumnSpec("loo_prediction", "LOO pred", None, "left"),
-    ColumnSpec("decision", "decision", 18, "left"),
+    ColumnSpec("decision", "decision", 20, "left"),
     ColumnSpec("score", "score", 7, "right", lambda v: format_float(v, ".3f")),
+    ColumnSpec("flags", "flags", 38, "left", lambda v: format_text(v).replace(",", " ")),
     ColumnSpec("flip_count", "flips", 5, "right"),
     ColumnSpec("margin", "margin", 7, "right", lambda v: format_float(v, "+.2f")),
     ColumnSpec("alpha", "alpha", 6, "right", lambda v: format_float(v, ".3g")),
     ColumnSpec("support", "supp", 4, "center"),
-    ColumnSpec("flags", "flags", 40, "left", lambda v: format_text(v).replace(",", " ")),
+    ColumnSpec("prediction", "pred", None, "left"),
 )
 #: Sort direction a column starts with when chosen (True: largest first).
 SORT_DESCENDING: dict[str, bool] = {"score": True, "flip_count": True, "alpha": True, "support": True}
@@ -175,7 +175,6 @@ class InspectScreen(Screen[None]):
             "clear",
             "Clear",
             id="holdfast.clear",
-            key_display="⌫",
             show=False,
             tooltip="Remove the row's decision (its note stays)",
         ),
@@ -225,13 +224,22 @@ class InspectScreen(Screen[None]):
             group=Binding.Group("Sort"),
             tooltip="Reverse the sort order",
         ),
-        Binding("g", "goto", "Go to id", id="holdfast.goto", tooltip="Jump to the row with a given id"),
+        Binding(
+            "g", "goto", "Go to id", id="holdfast.goto", show=False, tooltip="Jump to the row with a given id"
+        ),
+        Binding(
+            "i",
+            "toggle_detail",
+            "Detail",
+            id="holdfast.toggle_detail",
+            show=False,
+            tooltip="Hide or show the row detail (hidden: the table uses the whole width)",
+        ),
         Binding(
             "v",
             "overview",
             "Overview",
             id="holdfast.overview",
-            show=False,
             tooltip="Show the whole overview (bounds with sources, classes, margins); escape returns",
         ),
         Binding(
@@ -561,6 +569,8 @@ class InspectScreen(Screen[None]):
         self._detail_timer = None
         panel = self.query_one(RowDetailPanel)
         position = self.table.cursor_row
+        if not panel.display:
+            return
         if self._detail_context is None or self.book is None or position is None:
             panel.show(None)
             return
@@ -603,7 +613,7 @@ class InspectScreen(Screen[None]):
         self._decide_cursor("defer")
 
     def action_clear(self) -> None:
-        self._decide_cursor("clear", advance=False)
+        self._decide_cursor("clear")
 
     def action_relabel(self) -> None:
         position = self._cursor_position()
@@ -612,30 +622,26 @@ class InspectScreen(Screen[None]):
         current = self.labels[position]
         others = [c for c in self.label_classes if c != current]
         if len(others) == 1:
-            self._decide([position], "relabel", others[0], advance=True)
+            self._decide([position], "relabel", others[0])
             return
         title = Text(f"Relabel row {safe_text(self._row_id(position))} (label {safe_text(current)}) to:")
 
         def chosen(label: str | None) -> None:
             if label is not None:
-                self._decide([position], "relabel", label, advance=True)
+                self._decide([position], "relabel", label)
 
         self.app.push_screen(ChoiceDialog(title, [(c, c) for c in others], id="relabel-dialog"), chosen)
 
-    def _decide_cursor(self, decision: str, *, advance: bool = True) -> None:
+    def _decide_cursor(self, decision: str) -> None:
         position = self._cursor_position()
         if position is not None:
-            self._decide([position], decision, None, advance=advance)
+            self._decide([position], decision, None)
 
-    def _decide(
-        self,
-        positions: list[int] | np.ndarray,
-        decision: str,
-        new_label: str | None,
-        *,
-        advance: bool = False,
-    ) -> bool:
-        """Commit a decision for ``positions`` to the journal, then show it. False when it was not saved."""
+    def _decide(self, positions: list[int] | np.ndarray, decision: str, new_label: str | None) -> bool:
+        """Commit a decision for ``positions`` to the journal, then show it. False when it was not saved.
+
+        The cursor stays on its row, so that a note (n) or an undo (u) right after goes to the same row.
+        """
         assert self.book is not None
         try:
             changed = self.book.record(positions, decision, new_label)
@@ -648,8 +654,6 @@ class InspectScreen(Screen[None]):
             p = int(positions[0])
             what = decision_text(self.book.state(p)) or "decision cleared"
             self._set_message(f"Saved: {self._row_id(p)} {what}")
-            if advance:
-                self.table.move_cursor(self.table.cursor_index + 1)
         else:
             self._set_message(f"Saved: {decision} for {len(changed):,} rows")
         return True
@@ -840,6 +844,14 @@ class InspectScreen(Screen[None]):
             TextDialog("Go to the row with id:", hint="enter jumps · escape cancels", id="goto-dialog"),
             chosen,
         )
+
+    def action_toggle_detail(self) -> None:
+        panel = self.query_one(RowDetailPanel)
+        if self.maximized is panel:
+            self.minimize()
+        panel.display = not panel.display
+        if panel.display:
+            self._update_detail_now()
 
     def action_overview(self) -> None:
         panel = self.query_one(OverviewPanel)
