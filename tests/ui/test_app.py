@@ -248,12 +248,15 @@ async def test_bulk_decision_asks_first_and_is_one_undo(ds: DataSet) -> None:
         n = len(view)
         assert n > 0
 
+        first = screen.book.ids[screen.table.cursor_row]
+        await pilot.press("c")  # one row of the view already has a decision
         await pilot.press("b")
         await choose(pilot, "exclude")
         assert isinstance(app.screen, ConfirmDialog)
-        assert f"exclude: {n} rows?" in screen_text(app)
+        assert f"Exclude {n} rows (every row in this view)?" in screen_text(app)
+        assert "1 of them have another decision now; it will be replaced" in screen_text(app)
         await pilot.press("n")  # declined: nothing written
-        assert current(ds) == {}
+        assert {k: d.decision for k, d in current(ds).items()} == {first: "confirm"}
 
         await pilot.press("b")
         await choose(pilot, "exclude")
@@ -264,6 +267,8 @@ async def test_bulk_decision_asks_first_and_is_one_undo(ds: DataSet) -> None:
         assert {d.decision for d in state.values()} == {"exclude"}
         assert all(screen.table.value("decision", p) == "exclude" for p in view)
 
+        await pilot.press("u")  # the bulk action is one undo: back to the single confirm
+        assert {k: d.decision for k, d in current(ds).items()} == {first: "confirm"}
         await pilot.press("u")
         assert current(ds) == {}
 
@@ -273,7 +278,7 @@ async def test_bulk_decision_asks_first_and_is_one_undo(ds: DataSet) -> None:
         await choose(pilot, "relabel:premium")
         processing = int((rows["label"] == "processing").sum())
         text = screen_text(app)
-        assert f"relabel → premium: {processing} rows?" in text
+        assert f"Relabel {processing} rows to premium" in text
         assert f"{len(rows) - processing} rows already labelled premium" in text
         await pilot.press("y")
         assert len(current(ds)) == processing

@@ -73,6 +73,7 @@ class ExportDialog(ModalScreen[ExportRequest | None]):
             yield Static("Path", classes="dialog-label")
             yield Input(value=self._default, id="export-path")
             yield Static(
+                "tab moves between the choices, the path and the buttons; enter in the path exports.\n"
                 "Written to a temporary file, then renamed into place; "
                 "you are asked before a file is replaced.",
                 classes="dialog-hint",

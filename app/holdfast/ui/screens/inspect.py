@@ -147,12 +147,36 @@ class InspectTable(RowTable):
     ]
 
 
+def bulk_question(decision: str, new_label: str, count: int, skipped: int, replaced: int) -> str:
+    """The confirmation asked before one decision is applied to many rows."""
+    verb = {
+        "relabel": f"Relabel {count:,} rows to {new_label}",
+        "clear": f"Clear the decision of {count:,} rows",
+    }.get(decision, f"{decision.capitalize()} {count:,} rows")
+    lines = [f"{verb} (every row in this view)?"]
+    if skipped:
+        lines.append(f"{skipped:,} rows already labelled {new_label} are left as they are.")
+    if replaced and decision != "clear":
+        lines.append(f"{replaced:,} of them have another decision now; it will be replaced.")
+    lines.append("One undo (u) takes the whole change back.")
+    return "\n".join(lines)
+
+
 class InspectScreen(Screen[None]):
     """Browse the rows of a scan, decide on them, export. See the help screen (?) for the keys."""
 
     HORIZONTAL_BREAKPOINTS: ClassVar[list[tuple[int, str]] | None] = [(0, "-narrow"), (130, "-wide")]
+    VERTICAL_BREAKPOINTS: ClassVar[list[tuple[int, str]] | None] = [(0, "-short"), (40, "-tall")]
 
     BINDINGS: ClassVar[list[BindingType]] = [
+        Binding(
+            "question_mark",
+            "help",
+            "Help",
+            id="holdfast.help",
+            key_display="?",
+            tooltip="All keys, what the columns and flags mean",
+        ),
         Binding(
             "r",
             "relabel",
@@ -269,14 +293,6 @@ class InspectScreen(Screen[None]):
             "Resume scan",
             id="holdfast.rescan",
             tooltip="Start the scan again; it resumes from the refits already finished",
-        ),
-        Binding(
-            "question_mark",
-            "help",
-            "Help",
-            id="holdfast.help",
-            key_display="?",
-            tooltip="All keys, what the columns and flags mean",
         ),
     ]
 
@@ -580,7 +596,8 @@ class InspectScreen(Screen[None]):
             panel.show(None)
             self._set_message(f"Row detail failed: {error_line(exc)}", error=True)
             return
-        panel.show(detail, decision=self.book.text[position] or None)
+        text, note = self.book.text[position], self.book.note(position)
+        panel.show(detail, decision=(f"{text} {note}" if note else text) or None)
 
     # ------------------------------------------------------------------ actions: availability
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
@@ -741,11 +758,10 @@ class InspectScreen(Screen[None]):
             if len(targets) == 0:
                 self._set_message(f"Every row in this view is already labelled {new_label}.")
                 return
-            what = f"relabel → {new_label}" if decision == "relabel" else decision
-            question = f"{what}: {len(targets):,} rows?"
-            if skipped:
-                question += f"\n{skipped:,} rows already labelled {new_label} are left as they are."
-            question += "\nOne undo (u) takes the whole change back."
+            assert self.book is not None
+            kinds = self.book.kind[targets]
+            replaced = int(np.count_nonzero((kinds != "") & (kinds != decision)))
+            question = bulk_question(decision, new_label, len(targets), skipped, replaced)
 
             def confirmed(yes: bool | None) -> None:
                 if yes and self._decide(targets, decision, new_label or None):

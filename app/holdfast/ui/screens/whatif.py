@@ -74,6 +74,20 @@ def comparison_table(rows: list[tuple[str, Any, Any]]) -> Table:
     return table
 
 
+class ChangedRowsTable(RowTable):
+    """The changed rows, with the movement keys kept out of the footer (enter does nothing here)."""
+
+    BINDINGS: ClassVar[list[BindingType]] = [
+        Binding("up", "cursor_up", "Up", show=False),
+        Binding("down", "cursor_down", "Down", show=False),
+        Binding("pageup", "cursor_page_up", "Page up", show=False),
+        Binding("pagedown", "cursor_page_down", "Page down", show=False),
+        Binding("home", "cursor_first", "First row", show=False),
+        Binding("end", "cursor_last", "Last row", show=False),
+        Binding("enter", "choose_row", show=False),
+    ]
+
+
 class WhatIfScreen(Screen[None]):
     """Before/after comparison of a what-if refit. Escape or q goes back to the rows."""
 
@@ -114,7 +128,7 @@ class WhatIfScreen(Screen[None]):
                 yield Static(Text("\n".join(notes)), id="what-if-notes", classes="caution")
             yield Static(Text(f"Rows whose status changes: {len(changed):,}"), classes="help-heading")
             columns = [c for c in CHANGED_COLUMNS if c.key in changed.columns]
-            yield RowTable(
+            yield ChangedRowsTable(
                 changed.reset_index(drop=True),
                 columns,
                 id="what-if-changed",
