@@ -95,6 +95,27 @@ def test_loo_margin_three_classes_is_own_minus_best_other():
         assert lm[r] == pytest.approx(dec[yp[r]] - np.delete(dec, yp[r]).max(), abs=1e-3)
 
 
+def test_loo_margin_survives_the_refit_cache(tmp_path):
+    """A scan resumed from the refit store gives the same LOO margins as one computed afresh."""
+    from holdfast.engine.cache import RefitStore
+    from holdfast.engine.loo import exact_loo, support_key
+    from holdfast.learners.svm import SVMLearner
+
+    X, y = load_iris(return_X_y=True)
+    X, y = StandardScaler().fit_transform(X[50:]), y[50:] - 1  # versicolor against virginica
+    learner = SVMLearner()
+    model = learner.fit(X, y)
+    store = RefitStore(tmp_path / "refits.sqlite", support_key(model))
+    fresh = exact_loo(model, learner.refit_problem(), store=store)
+    store.close()
+    store = RefitStore(tmp_path / "refits.sqlite", support_key(model))
+    resumed = exact_loo(model, learner.refit_problem(), store=store)
+    store.close()
+    assert resumed.resumed == int(model.support.sum()) > 0
+    assert np.array_equal(resumed.loo_margin, fresh.loo_margin)
+    assert np.array_equal(fresh.loo_margin < 0, fresh.loo_code != y)
+
+
 # -- ranking rules --------------------------------------------------------------------------------------
 
 
