@@ -64,7 +64,9 @@ def binomial_tail_inverse_log(n: int, k: int, log_delta: float) -> float:
     if k >= n:
         return 1.0
     if log_delta >= _ISF_MIN_LOG_DELTA:
-        return float(stats.beta.isf(math.exp(log_delta), k + 1, n - k))
+        p = float(stats.beta.isf(math.exp(log_delta), k + 1, n - k))
+        if math.isfinite(p):  # isf returns NaN for some tiny deltas with k near n: solve below instead
+            return p
 
     def gap(p: float) -> float:
         return _log_binom_cdf(k, n, p) - log_delta
