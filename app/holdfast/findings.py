@@ -27,6 +27,7 @@ ROW_COLUMNS: dict[str, str] = {
     "bounded": "SVM: dual weight alpha at its upper limit C",
     "alpha": "dual weight (0 outside the support set)",
     "margin": "y * f(x): positive when the training prediction agrees with the label",
+    "loo_margin": "y * f(x) under the model trained without this row: negative for a LOO miss",
     "flip_count": "how many other training rows change predicted class when this row is left out",
     "score": "suspicion score, higher = look first (formula in holdfast.insight.score)",
     "rank": "1 = most suspicious training row; held-out rows rank after all training rows",
