@@ -602,7 +602,7 @@ class InspectScreen(Screen[None]):
     # ------------------------------------------------------------------ actions: availability
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
         if action in NEEDS_ROWS:
-            return True if self.book is not None else None
+            return self.book is not None  # hidden until there are rows to act on
         if action == "cancel":
             return self._busy is not None
         if action == "rescan":

@@ -78,13 +78,13 @@ class ChangedRowsTable(RowTable):
     """The changed rows, with the movement keys kept out of the footer (enter does nothing here)."""
 
     BINDINGS: ClassVar[list[BindingType]] = [
-        Binding("up", "cursor_up", "Up", show=False),
-        Binding("down", "cursor_down", "Down", show=False),
-        Binding("pageup", "cursor_page_up", "Page up", show=False),
-        Binding("pagedown", "cursor_page_down", "Page down", show=False),
-        Binding("home", "cursor_first", "First row", show=False),
-        Binding("end", "cursor_last", "Last row", show=False),
-        Binding("enter", "choose_row", show=False),
+        Binding("up", "cursor_up", "Up", id="whatif.cursor_up", show=False),
+        Binding("down", "cursor_down", "Down", id="whatif.cursor_down", show=False),
+        Binding("pageup", "cursor_page_up", "Page up", id="whatif.page_up", show=False),
+        Binding("pagedown", "cursor_page_down", "Page down", id="whatif.page_down", show=False),
+        Binding("home", "cursor_first", "First row", id="whatif.first", show=False),
+        Binding("end", "cursor_last", "Last row", id="whatif.last", show=False),
+        Binding("enter", "choose_row", id="whatif.choose", show=False),
     ]
 
 
