@@ -521,6 +521,10 @@ class InspectScreen(Screen[None]):
     @on(RowTable.CursorMoved)
     def _cursor_moved(self, event: RowTable.CursorMoved) -> None:
         self._update_status()
+        self._schedule_detail()
+
+    def _schedule_detail(self) -> None:
+        """Redraw the row detail shortly (at most every DETAIL_DELAY), keeping keys light."""
         if self._detail_timer is None:
             self._detail_timer = self.set_timer(DETAIL_DELAY, self._update_detail_now)
 
@@ -679,8 +683,9 @@ class InspectScreen(Screen[None]):
         assert self.book is not None
         if len(positions):
             self.table.update_values("decision", positions, self.book.text[positions])
-            if self.table.cursor_row in set(positions.tolist()):
-                self._update_detail_now()
+            cursor = self.table.cursor_row
+            if cursor is not None and bool(np.any(positions == cursor)):
+                self._schedule_detail()
         self._update_status()
         self.refresh_bindings()
 
@@ -725,8 +730,8 @@ class InspectScreen(Screen[None]):
             self._set_message(f"Nothing to {which}.")
             return
         self._show_changed(changed)
-        if len(changed) and self.table.move_to_position(int(changed[0])):
-            self._update_detail_now()
+        if len(changed):
+            self.table.move_to_position(int(changed[0]))  # the detail follows via CursorMoved
         done = "Undone" if which == "undo" else "Redone"
         self._set_message(
             f"{done}: {count:,} row(s)"
@@ -807,7 +812,7 @@ class InspectScreen(Screen[None]):
         self.filter_key = key
         self.table.set_filter(self._mask(key))
         self._update_status()
-        self._update_detail_now()
+        self._schedule_detail()
 
     def action_filter(self) -> None:
         assert self.book is not None
