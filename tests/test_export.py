@@ -289,3 +289,16 @@ def test_failed_write_leaves_no_partial_file(
     assert left == (["clean.parquet"] if force else [])  # no temp file, no half-written export
     if force:
         assert path.read_bytes() == b"earlier export"
+
+
+def test_atomic_write_uses_the_usual_file_permissions(tmp_path):
+    import os
+
+    from holdfast.atomic import atomic_write_bytes
+
+    old = os.umask(0o022)
+    try:
+        path = atomic_write_bytes(tmp_path / "out.txt", b"x")
+    finally:
+        os.umask(old)
+    assert path.stat().st_mode & 0o777 == 0o644

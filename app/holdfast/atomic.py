@@ -24,6 +24,9 @@ def atomic_write(path: str | Path, writer: Callable[[Path], None], *, force: boo
     fd, tmp_name = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
     os.close(fd)
     tmp = Path(tmp_name)
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes 0600: give the file the user's usual permissions
     try:
         writer(tmp)
         with open(tmp, "rb+") as fh:
