@@ -191,7 +191,7 @@ def bounds_summary(
     held = ~prepared.train
     if held.any():
         hr = rows[held]
-        n_h = int(len(hr))
+        n_h = len(hr)
         k_h = int(hr["loo_miss"].sum())
         out["test_set"] = {
             "name": "test-set bound",
@@ -246,7 +246,9 @@ def build_findings(
     seconds: float,
 ) -> Findings:
     """Per-row frame and summary for one scan."""
-    rows = build_rows(prepared, model, loo, held_pred=held_pred, held_decision=held_decision, k=spec.insight.k)
+    rows = build_rows(
+        prepared, model, loo, held_pred=held_pred, held_decision=held_decision, k=spec.insight.k
+    )
     tr = prepared.train_index
     m = len(tr)
     y = model.y
@@ -256,7 +258,7 @@ def build_findings(
     summary: dict[str, Any] = {
         "holdfast_version": __version__,
         "data": {
-            "rows_total": int(len(prepared.frame)),
+            "rows_total": len(prepared.frame),
             "features": prepared.features,
             "prepared_features": len(prepared.feature_names),
         },
