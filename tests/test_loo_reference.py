@@ -20,9 +20,9 @@ from holdfast.engine.loo import exact_loo
 from holdfast.learners.svm import SVMLearner
 
 
-def _reference_loo(X, y, learner: SVMLearner) -> np.ndarray:
-    """Full refit per row with scikit-learn's LeaveOneOut, same frozen gamma and tolerance."""
-    est = SVC(
+def _reference_svc(learner: SVMLearner) -> SVC:
+    """scikit-learn's SVC with the learner's frozen gamma, class weights and tolerance."""
+    return SVC(
         kernel=learner.kernel,
         C=learner.C,
         gamma=learner.gamma_,
@@ -31,6 +31,11 @@ def _reference_loo(X, y, learner: SVMLearner) -> np.ndarray:
         tol=learner.tol,
         class_weight=learner.class_weight_,
     )
+
+
+def _reference_loo(X, y, learner: SVMLearner) -> np.ndarray:
+    """Full refit per row with scikit-learn's LeaveOneOut, same frozen gamma and tolerance."""
+    est = _reference_svc(learner)
     return cross_val_predict(est, X, y, cv=LeaveOneOut(), n_jobs=1)
 
 
@@ -39,15 +44,7 @@ def _reference_flips(X, y, learner: SVMLearner, full_pred: np.ndarray, rows: np.
     out = []
     for r in rows:
         keep = np.delete(np.arange(len(y)), r)
-        est = SVC(
-            kernel=learner.kernel,
-            C=learner.C,
-            gamma=learner.gamma_,
-            degree=learner.degree,
-            coef0=learner.coef0,
-            tol=learner.tol,
-            class_weight=learner.class_weight_,
-        )
+        est = _reference_svc(learner)
         pred = est.fit(X[keep], y[keep]).predict(X)
         changed = pred != full_pred
         changed[r] = False

@@ -462,6 +462,11 @@ async def test_help_lists_the_same_keys_as_the_bindings(ds: DataSet) -> None:
         await pilot.press("question_mark")
         assert isinstance(app.screen, HelpScreen)
         text = screen_text(app)
+        for _ in range(50):  # on a loaded machine the help screen may need a few frames to paint
+            if "evidence, not proof" in text:
+                break
+            await pilot.pause(0.1)
+            text = screen_text(app)
         for binding in type(screen).BINDINGS:
             assert binding.description in text  # type: ignore[union-attr]
         assert "evidence, not proof" in text
