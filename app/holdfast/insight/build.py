@@ -16,7 +16,7 @@ from holdfast.findings import ROW_COLUMNS, Findings
 from holdfast.insight import bounds as B
 from holdfast.insight.flags import FLAG_REASONS, TWIN_TOL, compute_flags
 from holdfast.insight.score import multiscale_dissent, rank_rows, suspicion_score
-from holdfast.learners.base import FittedModel
+from holdfast.learners.base import FittedModel, signed_margins
 
 
 def _class_values(prepared: Prepared, codes: np.ndarray) -> pd.Series:
@@ -92,14 +92,7 @@ def build_rows(
     if held_decision is not None and len(held):
         yh = prepared.y[held]
         known = yh >= 0
-        if held_decision.ndim == 1:
-            mh = np.where(yh == 1, 1.0, -1.0) * held_decision
-        else:
-            own = held_decision[np.arange(len(held)), np.maximum(yh, 0)]
-            other = np.where(
-                np.eye(held_decision.shape[1], dtype=bool)[np.maximum(yh, 0)], -np.inf, held_decision
-            )
-            mh = own - other.max(axis=1)
+        mh = signed_margins(held_decision, np.maximum(yh, 0))
         margin[held] = np.where(known, mh, np.nan)
 
     def spread(values: np.ndarray, fill: Any, dtype: Any) -> np.ndarray:

@@ -13,6 +13,16 @@ from typing import Any, Protocol
 import numpy as np
 
 
+def signed_margins(decision: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """y * f(x) for many rows: two-class decision values signed by the label (+1 for class code 1), or
+    for more classes each row's own class's decision value minus the largest other one."""
+    if decision.ndim == 1:
+        return np.where(y == 1, 1.0, -1.0) * decision
+    own = decision[np.arange(len(y)), y]
+    other = np.where(np.eye(decision.shape[1], dtype=bool)[y], -np.inf, decision).max(axis=1)
+    return own - other
+
+
 @dataclass
 class RefitOutcome:
     """What one refit without one row tells about that row.

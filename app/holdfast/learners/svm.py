@@ -21,7 +21,7 @@ from sklearn.metrics.pairwise import polynomial_kernel, rbf_kernel
 from sklearn.svm import SVC
 
 from holdfast.errors import SpecError
-from holdfast.learners.base import FittedModel, RefitOutcome
+from holdfast.learners.base import FittedModel, RefitOutcome, signed_margins
 
 KERNELS = ("linear", "rbf", "poly")
 DEFAULTS: dict[str, Any] = {
@@ -326,12 +326,7 @@ class SVMLearner:
         alpha[clf.support_] = coef.max(axis=0)
         row_c = self.C * (np.array([weights[c] for c in y]) if weights else np.ones(m))
         bounded = support & np.isclose(alpha, row_c, rtol=1e-8, atol=0.0)
-        if n_classes == 2:
-            margin = np.where(y == 1, 1.0, -1.0) * decision
-        else:
-            own = decision[np.arange(m), y]
-            other = np.where(np.eye(n_classes, dtype=bool)[y], -np.inf, decision).max(axis=1)
-            margin = own - other
+        margin = signed_margins(decision, y)
         extras: dict[str, Any] = {"kernel_r2": self._kernel_r2(K, X, gamma), "decision": decision}
         if K is not None:
             extras["K"] = K
