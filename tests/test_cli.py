@@ -76,6 +76,22 @@ def test_scan_with_label_only(data, tmp_path):
     assert summary["spec"]["learner"]["kernel"] == "rbf" and summary["spec"]["learner"]["C"] == 1.0
 
 
+def test_label_with_id_column(data, tmp_path):
+    path, _, frame = data
+    out = tmp_path / "res3"
+    assert main(["scan", str(path), "--label", "grade", "--id", "lot", "--out", str(out), "--quiet"]) == 0
+    rows = pd.read_parquet(out / "rows.parquet")
+    assert rows["id"].tolist() == frame["lot"].tolist()
+    summary = json.loads((out / "summary.json").read_text())
+    assert "lot" not in summary["data"]["features"] and summary["spec"]["data"]["id"] == "lot"
+
+
+def test_id_without_label_is_a_user_error(data, tmp_path):
+    path, spec, _ = data
+    r = _run(["scan", str(path), "--spec", str(spec), "--id", "lot", "--out", str(tmp_path / "o")])
+    assert r.returncode == 2 and "--id goes with --label" in r.stderr
+
+
 def _run(args):
     return subprocess.run([sys.executable, "-m", "holdfast.cli", *args], capture_output=True, text=True)
 
