@@ -17,6 +17,7 @@ import numpy as np
 import pandas as pd
 
 from holdfast.atomic import atomic_write
+from holdfast.data.prepare import row_ids
 from holdfast.errors import DataError, UserError
 from holdfast.journal import DECISIONS, Decision, Journal
 
@@ -147,15 +148,6 @@ def _validate(frame: pd.DataFrame, source: Path) -> None:
 
 
 # ---------------------------------------------------------------------------- cleaned data set
-def row_ids(data: pd.DataFrame, id_column: str | None) -> list[str]:
-    """Row ids as text: the id column's values, or the 0-based row position when ``id_column`` is None."""
-    if id_column is None:
-        return [str(i) for i in range(len(data))]
-    if id_column not in data.columns:
-        raise DataError(f"id column '{id_column}' is not in the data")
-    return [str(v) for v in data[id_column].tolist()]
-
-
 def apply_decisions(
     data: pd.DataFrame,
     decisions: Mapping[str, Decision] | pd.DataFrame,

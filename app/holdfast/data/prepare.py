@@ -62,9 +62,14 @@ def _is_numeric(s: pd.Series) -> bool:
     return pd.api.types.is_numeric_dtype(s) or pd.api.types.is_bool_dtype(s)
 
 
-def label_text(values: pd.Series) -> np.ndarray:
-    """Values as text (``str(v)``), for ids; holdfast.export.row_ids uses the same rule."""
-    return np.array([str(v) for v in values], dtype=object)
+def row_ids(data: pd.DataFrame, id_column: str | None) -> list[str]:
+    """Row ids as text: the id column's values (``str(v)``), or the 0-based row position when
+    ``id_column`` is None. The one rule for ids: findings, journal and exports all use it."""
+    if id_column is None:
+        return [str(i) for i in range(len(data))]
+    if id_column not in data.columns:
+        raise DataError(f"id column '{id_column}' is not in the data")
+    return [str(v) for v in data[id_column].tolist()]
 
 
 def prepare(frame: pd.DataFrame, spec: Spec, source: str = "<data>") -> Prepared:
@@ -98,7 +103,7 @@ def prepare(frame: pd.DataFrame, spec: Spec, source: str = "<data>") -> Prepared
         if id_s.isna().any():
             first = int(np.flatnonzero(id_s.isna().to_numpy())[0])
             raise DataError(f"{source}: id column '{d.id}' is empty at row {first}")
-        ids = label_text(id_s)
+        ids = np.array(row_ids(frame, d.id), dtype=object)
         dup = pd.Series(ids).duplicated()
         if dup.any():
             first = int(np.flatnonzero(dup.to_numpy())[0])
@@ -106,7 +111,7 @@ def prepare(frame: pd.DataFrame, spec: Spec, source: str = "<data>") -> Prepared
                 f"{source}: id column '{d.id}' repeats id '{ids[first]}' (row {first}); ids must be unique"
             )
     else:
-        ids = np.array([str(i) for i in range(n)], dtype=object)
+        ids = np.array(row_ids(frame, None), dtype=object)
 
     # label
     lab = frame[d.label]

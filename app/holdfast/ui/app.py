@@ -5,6 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Any, ClassVar
 
+import pandas as pd
 from textual.app import App
 from textual.binding import Binding, BindingType
 from textual.screen import Screen
@@ -43,9 +44,17 @@ class HoldfastApp(App[int]):
         Binding("ctrl+c", "help_quit", show=False, system=True),
     ]
 
-    def __init__(self, data_path: Path, spec: Spec, session: OpenedSession, *, scan: Any = None) -> None:
+    def __init__(
+        self,
+        data_path: Path,
+        spec: Spec,
+        session: OpenedSession,
+        *,
+        scan: Any = None,
+        frame: pd.DataFrame | None = None,
+    ) -> None:
         super().__init__()
-        self.context = InspectContext(Path(data_path), spec, session, scan)
+        self.context = InspectContext(Path(data_path), spec, session, scan, frame)
 
     def get_default_screen(self) -> Screen:
         return InspectScreen(self.context)

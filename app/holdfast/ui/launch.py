@@ -22,12 +22,13 @@ def launch(data_path: Path, spec: Spec, session: Path | None = None) -> int:
     from holdfast.ui.app import HoldfastApp
 
     # A wrong file, column or spec value is a one-line error on the command line (exit 2), not a screen.
-    prepare(read_table(data_path), spec, source=str(data_path))
+    frame = read_table(data_path)
+    prepare(frame, spec, source=str(data_path))
     opened = open_session(data_path, spec, session)
     if opened.location_note:
         print(f"holdfast: {opened.location_note}", file=sys.stderr)
     try:
-        app = HoldfastApp(Path(data_path), spec, opened)
+        app = HoldfastApp(Path(data_path), spec, opened, frame=frame)
         code = app.run()
     finally:
         journal = opened.journal

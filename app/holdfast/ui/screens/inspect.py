@@ -124,6 +124,8 @@ class InspectContext:
     spec: Spec
     session: OpenedSession
     scan: Any = None
+    #: the data already read by the launcher; used by the first scan only (a rescan reads the file again)
+    frame: pd.DataFrame | None = None
 
 
 class InspectTable(RowTable):
@@ -380,12 +382,14 @@ class InspectScreen(Screen[None]):
             if throttle.ready(done, total):
                 self.post_message(ScanProgress(done, total, eta, generation))
 
+        frame, self.context.frame = self.context.frame, None
         try:
             scan = run_scan(
                 self.context.data_path,
                 self.context.spec,
                 progress=progress,
                 should_cancel=lambda: worker.is_cancelled,
+                frame=frame,
             )
         except Cancelled:
             self.post_message(ScanCancelled(generation))
