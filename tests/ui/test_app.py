@@ -118,6 +118,10 @@ async def test_sort_filter_move_and_jump(ds: DataSet) -> None:
         assert set(table.view_positions().tolist()) == misses and misses
         assert "filter: LOO misses" in screen_text(app)
 
+        await pilot.press("f")  # without a split there is no held-out filter to offer
+        assert "held_out_miss" not in [k for k, _ in app.screen.choices]
+        await pilot.press("escape")
+
         await pilot.press("f")
         await choose(pilot, "label:processing")
         view = table.view_positions()
@@ -160,6 +164,32 @@ async def test_sort_filter_move_and_jump(ds: DataSet) -> None:
 def current(ds: DataSet) -> dict:
     with Journal.open(session_path(ds)) as journal:
         return journal.current(include_notes_only=True)
+
+
+async def test_held_out_errors_have_their_own_filter(tmp_path: Path, monkeypatch) -> None:  # type: ignore[no-untyped-def]
+    """With a split, "LOO misses" counts training rows only; the final model's errors on held-out rows
+    are a filter of their own (the two sets are disjoint and together make up the loo_miss column)."""
+    monkeypatch.setenv("HOLDFAST_CACHE_DIR", str(tmp_path / "cache"))
+    ds = write_dataset(tmp_path / "data")
+    frame = ds.frame.assign(holdout=np.arange(len(ds.frame)) % 4 == 0)
+    frame.to_parquet(ds.data, index=False)
+    spec_text = ds.spec_path.read_text().replace('id = "crate"', 'id = "crate"\nsplit = "holdout"')
+    ds.spec_path.write_text(spec_text)
+    ds = DataSet(ds.data, ds.spec_path, frame)
+    app = make_app(ds)
+    async with app.run_test(size=SIZE) as pilot:
+        screen = await scanned(pilot)
+        rows = screen.scan.findings.rows
+        held = frame["holdout"].to_numpy()
+        miss = rows["loo_miss"].to_numpy(dtype=bool)
+        assert (miss & held).any() and (miss & ~held).any()
+        await pilot.press("f")
+        await choose(pilot, "loo_miss")
+        assert set(screen.table.view_positions().tolist()) == set(np.flatnonzero(miss & ~held).tolist())
+        await pilot.press("f")
+        await choose(pilot, "held_out_miss")
+        assert set(screen.table.view_positions().tolist()) == set(np.flatnonzero(miss & held).tolist())
+        assert "filter: held-out errors" in screen_text(app)
 
 
 async def test_decisions_are_in_the_journal_before_the_table_shows_them(ds: DataSet) -> None:

@@ -75,7 +75,8 @@ SORT_DESCENDING: dict[str, bool] = {"score": True, "flip_count": True, "alpha": 
 FILTERS: dict[str, str] = {
     "all": "all rows",
     "support": "support rows",
-    "loo_miss": "LOO misses",
+    "loo_miss": "LOO misses (training rows)",
+    "held_out_miss": "held-out errors",
     "flagged": "flagged rows",
     "undecided": "rows without a decision",
 }
@@ -803,8 +804,10 @@ class InspectScreen(Screen[None]):
             rows = self.rows
             if key == "support":
                 mask = rows["support"].to_numpy(dtype=bool)
-            elif key == "loo_miss":
-                mask = rows["loo_miss"].to_numpy(dtype=bool)
+            elif key in ("loo_miss", "held_out_miss"):
+                # loo_miss on a held-out row is the final model's error there, not a LOO miss
+                held = rows["held_out"].to_numpy(dtype=bool)
+                mask = rows["loo_miss"].to_numpy(dtype=bool) & (held if key == "held_out_miss" else ~held)
             elif key == "flagged":
                 mask = rows["flags"].fillna("").to_numpy(dtype=object) != ""
             else:
@@ -821,7 +824,10 @@ class InspectScreen(Screen[None]):
     def action_filter(self) -> None:
         assert self.book is not None
         choices: list[tuple[str, str]] = []
+        held_out = bool(self.rows is not None and self.rows["held_out"].any())
         for key in FILTERS:
+            if key == "held_out_miss" and not held_out:
+                continue
             mask = self._mask(key)
             count = self.table.row_count if mask is None else int(mask.sum())
             choices.append((key, f"{FILTERS[key]} ({count:,})"))
