@@ -8,6 +8,7 @@ the original frame with pandas operations.
 
 from __future__ import annotations
 
+import re
 import threading
 from pathlib import Path
 
@@ -164,6 +165,24 @@ async def test_sort_filter_move_and_jump(ds: DataSet) -> None:
 def current(ds: DataSet) -> dict:
     with Journal.open(session_path(ds)) as journal:
         return journal.current(include_notes_only=True)
+
+
+async def test_whole_screen_overview_shows_the_full_sources(ds: DataSet) -> None:
+    from holdfast.ui.widgets.overview import OverviewPanel
+
+    app = make_app(ds)
+    async with app.run_test(size=SIZE) as pilot:
+        screen = await scanned(pilot)
+        panel = screen.query_one(OverviewPanel)
+        title = "The Nature of Statistical Learning Theory"  # the support-fraction bound's source
+        assert not panel.full and title not in re.sub(r"\s+", " ", screen_text(app))
+        await pilot.press("v")
+        await pilot.pause()
+        assert screen.maximized is panel and panel.full
+        assert title in re.sub(r"\s+", " ", screen_text(app))
+        await pilot.press("v")
+        await pilot.pause()
+        assert screen.maximized is None and not panel.full
 
 
 async def test_held_out_errors_have_their_own_filter(tmp_path: Path, monkeypatch) -> None:  # type: ignore[no-untyped-def]

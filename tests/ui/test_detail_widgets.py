@@ -213,9 +213,17 @@ async def test_overview_shows_counts_bounds_sources_and_histogram(scan):
         line_with(lines, "training errors", f"{summary['training_errors']:,}")
         line_with(lines, "LOO errors (exact)", f"{summary['loo_errors']:,}")
         squashed = re.sub(r"\s+", " ", text)
-        for item in summary["bounds"].values():
+        for item in summary["bounds"].values():  # compact: the value and the source's "Author Year"
             line_with(lines, item["name"], f"{item['value']:.4f}")
             assert item["source"].split(",")[0] in squashed
+        assert "The Nature of Statistical Learning Theory" not in squashed
+        panel.set_full(True)  # the whole-screen view (v) adds each full source
+        await pilot.pause()
+        full = re.sub(r"\s+", " ", "\n".join(line[: 220 - PANEL_WIDTH] for line in screen_lines(app)))
+        for item in summary["bounds"].values():  # wrapped within its column: look for every word
+            assert all(word in full for word in item["source"].split()), item["source"]
+        panel.set_full(False)
+        await pilot.pause()
         for label, n in summary["class_counts"].items():
             line_with(lines, label, f"{n:,}", f"{n / summary['m']:.0%}")
         for label in scan.findings.classes:  # a class-balance row and a histogram row per class

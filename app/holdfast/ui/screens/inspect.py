@@ -891,6 +891,10 @@ class InspectScreen(Screen[None]):
         else:
             self.maximize(panel, container=False)
 
+    def watch_maximized(self, maximized: Any) -> None:
+        """The whole-screen overview shows each bound's full source; the compact one a short citation."""
+        self.query_one(OverviewPanel).set_full(maximized is self.query_one(OverviewPanel))
+
     def action_help(self) -> None:
         from holdfast.ui.screens.help import HelpScreen
 

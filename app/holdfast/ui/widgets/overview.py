@@ -85,6 +85,9 @@ class Columns:
 class OverviewPanel(VerticalScroll):
     """Scrollable overview of a scan; call :meth:`show` with the summary dict and the margin histogram."""
 
+    #: ``v`` fills the screen with it (scroll containers do not allow that by default)
+    ALLOW_MAXIMIZE = True
+
     COMPONENT_CLASSES: ClassVar[set[str]] = {
         "overview--heading",
         "overview--muted",
@@ -119,12 +122,20 @@ class OverviewPanel(VerticalScroll):
         super().__init__(name=name, id=id, classes=classes)
         self.summary: dict[str, Any] | None = None
         self.margin_hist: Histogram | None = None
+        #: full published sources under each bound (the whole-screen view); short citations otherwise
+        self.full = False
 
     def compose(self) -> ComposeResult:
         yield Static("", classes="overview-body", markup=False)
 
     def _s(self, name: str) -> Style:
         return self.get_component_rich_style(f"overview--{name}")
+
+    def set_full(self, full: bool) -> None:
+        """Switch between short citations (compact) and full sources (whole-screen view)."""
+        if full != self.full:
+            self.full = full
+            self.show(self.summary, self.margin_hist)
 
     def show(self, summary: dict[str, Any] | None, margin_hist: Histogram | None = None) -> None:
         """Draw ``summary`` (the findings summary dict) and ``margin_hist`` (margins by class)."""
@@ -222,9 +233,12 @@ class OverviewPanel(VerticalScroll):
                 continue
             value = item.get("value")
             note = safe_text(item.get("note", "")) if item.get("note") else ""
+            source = safe_text(item.get("source", "") or "")
+            if not self.full:  # compact: value and "Author Year"; note and whole source are one key (v) away
+                note, source = "", source.split(",")[0]
             out.append(self._pair(safe_text(item.get("name", key)), fmt_number(value, ".4f"), note))
-            if item.get("source"):
-                out.append(Padding(Text(safe_text(item["source"]), style=self._s("muted")), (0, 0, 0, 2)))
+            if source:
+                out.append(Padding(Text(source, style=self._s("muted")), (0, 0, 0, 2)))
         if len(out) == 1:
             out.append(Text("none", style=self._s("muted")))
         return out
