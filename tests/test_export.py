@@ -302,3 +302,28 @@ def test_atomic_write_uses_the_usual_file_permissions(tmp_path):
     finally:
         os.umask(old)
     assert path.stat().st_mode & 0o777 == 0o644
+
+
+def test_decisions_parquet_types_do_not_depend_on_the_content(tmp_path: Path, rows: pd.DataFrame) -> None:
+    """A journal with only a confirm (no new label, no note anywhere) still writes text columns as text:
+    without a fixed schema pyarrow would infer the Arrow type ``null`` for an all-empty column."""
+    import pyarrow.parquet as pq
+
+    with Journal.create(
+        tmp_path / "s.db", fingerprint="fp", data_path="d.parquet", spec_text="", label_column="grade", id_column=None
+    ) as j:
+        j.record("104", "confirm")
+        path = export_decisions(j, rows, tmp_path / "decisions.parquet")
+    schema = pq.read_schema(path)
+    assert schema.names == list(DECISION_COLUMNS)
+    assert all(
+        str(schema.field(c).type) == ("double" if c == "score" else "large_string") for c in DECISION_COLUMNS
+    ), schema
+    back = read_decisions(path)
+    assert back["decision"].tolist() == ["confirm"] and back["new_label"].isna().all()
+
+
+def test_csv_exports_end_lines_with_newline_on_every_platform(journal: Journal, rows, tmp_path: Path) -> None:
+    raw = export_decisions(journal, rows, tmp_path / "decisions.csv").read_bytes()
+    assert b"\r" not in raw  # pandas would use os.linesep ("\r\n" on Windows) unless told otherwise
+    assert raw.count(b"\n") == 1 + 6 + 1  # header, six decisions, the line break inside one note

@@ -15,6 +15,7 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
 
 from holdfast.atomic import atomic_write
 from holdfast.data.prepare import row_ids
@@ -34,6 +35,10 @@ DECISION_COLUMNS: tuple[str, ...] = (
 #: Columns a decisions file must have to be read back (the others are filled with empty values).
 REQUIRED_COLUMNS: tuple[str, ...] = ("id", "decision", "new_label")
 _TEXT_COLUMNS = tuple(c for c in DECISION_COLUMNS if c != "score")
+#: Parquet schema of a decisions file: fixed, so that a column with no values is still text, not null
+DECISIONS_SCHEMA = pa.schema(
+    [(c, pa.float64() if c == "score" else pa.large_string()) for c in DECISION_COLUMNS]
+)
 FORMATS = (".parquet", ".csv")
 
 
@@ -92,7 +97,7 @@ def export_decisions(journal: Journal, rows: pd.DataFrame, path: str | Path, *, 
     target = Path(path)
     _suffix(target)
     _refuse_overwrite(target, force)
-    _write_frame(decisions_frame(journal, rows), target)
+    _write_frame(decisions_frame(journal, rows), target, schema=DECISIONS_SCHEMA)
     return target
 
 
@@ -281,16 +286,17 @@ def _refuse_overwrite(path: Path, force: bool) -> None:
         raise UserError(f"{path}: already exists; use --force to overwrite")
 
 
-def _write_frame(frame: pd.DataFrame, path: Path) -> None:
+def _write_frame(frame: pd.DataFrame, path: Path, schema: pa.Schema | None = None) -> None:
+    """Write ``frame`` atomically; Parquet with ``schema`` if given, CSV with "\\n" line ends everywhere."""
     if _suffix(path) == ".parquet":
 
         def writer(p: Path) -> None:
-            frame.to_parquet(p, index=False)
+            frame.to_parquet(p, index=False, schema=schema)
 
     else:
 
         def writer(p: Path) -> None:
-            frame.to_csv(p, index=False)
+            frame.to_csv(p, index=False, lineterminator="\n")
 
     try:
         atomic_write(path, writer, force=True)
