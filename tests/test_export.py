@@ -310,7 +310,12 @@ def test_decisions_parquet_types_do_not_depend_on_the_content(tmp_path: Path, ro
     import pyarrow.parquet as pq
 
     with Journal.create(
-        tmp_path / "s.db", fingerprint="fp", data_path="d.parquet", spec_text="", label_column="grade", id_column=None
+        tmp_path / "s.db",
+        fingerprint="fp",
+        data_path="d.parquet",
+        spec_text="",
+        label_column="grade",
+        id_column=None,
     ) as j:
         j.record("104", "confirm")
         path = export_decisions(j, rows, tmp_path / "decisions.parquet")
