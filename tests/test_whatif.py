@@ -116,7 +116,7 @@ def test_exclusions_remove_rows_and_match_a_direct_fit(scan, data):
     assert (w.after["d"], w.after["loo_errors"]) == (d_ref, loo_ref)
     ex = w.changed[w.changed["status_after"] == "excluded"]
     assert sorted(ex["id"]) == sorted(ids[drop])
-    assert sorted(ex["position"]) == sorted(drop.tolist())
+    assert sorted(ex["row"]) == sorted(drop.tolist())
     assert w.findings is not None
     assert list(w.findings.rows["id"]) == [i for n, i in enumerate(ids) if n not in set(drop)]
 

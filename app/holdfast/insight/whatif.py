@@ -49,7 +49,7 @@ BOUND_KEYS: tuple[str, ...] = (
 #: columns of :attr:`WhatIf.changed`
 CHANGED_COLUMNS: tuple[str, ...] = (
     "id",
-    "position",
+    "row",
     "label_before",
     "label_after",
     "status_before",
@@ -71,7 +71,7 @@ class WhatIf:
 
     ``comparison`` rows are (name, before, after); ``changed`` lists the rows whose label, support
     membership, LOO miss or prediction changed, or that were excluded (columns ``CHANGED_COLUMNS``;
-    ``position`` is the row's position in the original data).
+    ``row`` is its 0-based position in the original data, as in rows.parquet).
     """
 
     before: dict[str, Any]
@@ -180,7 +180,7 @@ def changed_rows(
     frame = pd.DataFrame(
         {
             "id": pd.Series(ids, dtype="string"),
-            "position": b["row"].to_numpy(dtype=np.int64)[idx],
+            "row": b["row"].to_numpy(dtype=np.int64)[idx],
             "label_before": pd.Series(lb[idx], dtype="string"),
             "label_after": pd.Series(la[idx], dtype="string"),
             "status_before": pd.Series([_status(sb[i], mb[i], pb[i]) for i in idx], dtype="string"),
