@@ -62,6 +62,39 @@ def test_scan_writes_rows_and_summary(data, tmp_path, capsys):
     assert summary["learner"]["gamma"] > 0 and summary["learner"]["gamma_spec"] == "scale"
     printed = capsys.readouterr().out
     assert "support rows d" in printed and "evidence, not proof" in printed
+    rate = summary["loo_errors"] / summary["m"]
+    assert f"LOO errors            {summary['loo_errors']}  (exact; error rate {rate:.4f})" in printed
+    c = summary["explanation"]["composition"]
+    assert f"why d is {summary['d']}: {c['bounded_misclassified']} bounded and misclassified" in printed
+    # the ten best-ranked training rows, in rank order, as pandas picks them from rows.parquet
+    listed = printed.split("most suspicious rows")[1].splitlines()[2:12]
+    expected = train.nsmallest(10, "rank")
+    assert [line.split()[1] for line in listed] == expected["id"].tolist()
+    assert [int(line.split()[0]) for line in listed] == expected["rank"].tolist()
+
+
+def test_scan_top_option(data, tmp_path, capsys):
+    path, spec, _ = data
+    args = ["scan", str(path), "--spec", str(spec), "--out", str(tmp_path / "res"), "--quiet"]
+    assert main([*args, "--top", "3"]) == 0
+    printed = capsys.readouterr().out
+    assert "most suspicious rows (3 of 140 training rows" in printed
+    assert main([*args, "--top", "0"]) == 0
+    assert "most suspicious rows" not in capsys.readouterr().out
+    r = _run([*args, "--top", "-1"])
+    assert r.returncode == 2 and r.stderr.strip() == "holdfast: error: --top must be 0 or more, got -1"
+
+
+def test_error_lines_show_data_text_literally(tmp_path):
+    """A column name holding a terminal escape and a line break is named in one literal line."""
+    bad = "grade\x1b[31m\nred"
+    frame = pd.DataFrame({"x": [1.0, 2.0, 3.0, 4.0], bad: ["a", "b", "a", "b"]})
+    path = tmp_path / "d.parquet"
+    frame.to_parquet(path)
+    r = _run(["scan", str(path), "--label", "grad", "--out", str(tmp_path / "o")])
+    assert r.returncode == 2
+    assert "\x1b" not in r.stderr and len(r.stderr.strip().splitlines()) == 1
+    assert "\\x1b[31m\\nred" in r.stderr  # the escape and the line break as visible characters
 
 
 def test_scan_with_label_only(data, tmp_path):

@@ -15,6 +15,7 @@ from pathlib import Path
 
 from holdfast import __version__
 from holdfast.errors import Cancelled, UserError
+from holdfast.textsafe import safe_text
 
 CAUTION = (
     "Flags are statistical evidence, not proof of a wrong label. In regulated or safety-relevant data "
@@ -84,8 +85,11 @@ def _load_spec(args: argparse.Namespace):
 
 
 def cmd_scan(args: argparse.Namespace) -> int:
-    from holdfast.scan import run_scan, summary_text
+    from holdfast.scan import run_scan
+    from holdfast.textout import summary_text, top_rows_text
 
+    if args.top < 0:
+        raise UserError(f"--top must be 0 or more, got {args.top}")
     spec = _load_spec(args)
     out = Path(args.out)
     if out.exists() and not out.is_dir():
@@ -104,6 +108,9 @@ def cmd_scan(args: argparse.Namespace) -> int:
     rows_path, summary_path = scan.findings.write(out)
     print(f"{args.data}: {'from cache; ' if scan.from_cache else ''}wrote {rows_path} and {summary_path}")
     print(summary_text(scan.findings.summary))
+    if args.top:
+        print(top_rows_text(scan.findings.rows, args.top))
+    print()
     if decisions is not None:
         from holdfast.insight.whatif import what_if, write_whatif
 
@@ -130,6 +137,7 @@ def cmd_demo(args: argparse.Namespace) -> int:
             out=str(folder / "results"),
             quiet=False,
             no_cache=False,
+            top=10,
         )
         return cmd_scan(ns)
     ns = argparse.Namespace(
@@ -185,6 +193,9 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("--no-cache", action="store_true", help="neither reuse nor write the result cache")
     sp.add_argument("--quiet", action="store_true", help="no progress bar")
     sp.add_argument(
+        "--top", type=int, default=10, metavar="N", help="list the N most suspicious rows (10; 0: none)"
+    )
+    sp.add_argument(
         "--decisions",
         help="decisions file (.parquet or .csv, as exported): also refit with its relabels and exclusions "
         "applied; writes whatif.json and whatif_rows.parquet",
@@ -226,7 +237,7 @@ def main(argv: list[str] | None = None) -> int:
     try:
         return int(args.func(args) or 0)
     except UserError as exc:
-        print(f"holdfast: error: {exc}", file=sys.stderr)
+        print(f"holdfast: error: {safe_text(str(exc))}", file=sys.stderr)  # data text: one literal line
         return 2
     except (Cancelled, KeyboardInterrupt):
         print(
@@ -237,7 +248,7 @@ def main(argv: list[str] | None = None) -> int:
     except Exception as exc:
         if os.environ.get("HOLDFAST_DEBUG"):
             raise
-        first = str(exc).splitlines()[0] if str(exc) else ""
+        first = safe_text(str(exc).splitlines()[0]) if str(exc) else ""
         print(
             f"holdfast: internal error: {exc.__class__.__name__}: {first} (HOLDFAST_DEBUG=1 shows more)",
             file=sys.stderr,

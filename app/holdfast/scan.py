@@ -11,7 +11,6 @@ import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -155,25 +154,3 @@ def run_scan(
         atomic_write_parquet(_flips_frame(flips), folder / "flips.parquet")
         findings.write(folder)
     return Scan(findings=findings, prepared=prepared, data_path=path, spec=spec, flips=flips, model=model)
-
-
-def summary_text(summary: dict[str, Any]) -> str:
-    """A short human summary for the terminal."""
-    b = summary["bounds"]
-    held = summary.get("held_out")
-    free = summary["d"] - summary["bounded"]
-    kind = "exact" if summary["loo_exact"] else "approximate"
-    pairs: list[tuple[str, str]] = [
-        ("rows (training)", f"{summary['m']}" + (f"   held out {held['n']}" if held else "")),
-        ("support rows d", f"{summary['d']}  ({summary['bounded']} bounded, {free} free)"),
-        ("training errors", f"{summary['training_errors']}"),
-        ("LOO errors", f"{summary['loo_errors']}  ({kind})"),
-    ]
-    for key in ("support_fraction", "loo_bound", "xi_alpha", "span", "compression", "test_set"):
-        if key in b:
-            item = b[key]
-            pairs.append((item["name"], f"{item['value']:.4f}   {item.get('note', '')}".rstrip()))
-    if held:
-        pairs.append(("held-out errors", f"{held['errors']} of {held['n']}  ({held['error_rate']:.4f})"))
-    width = max(len(name) for name, _ in pairs) + 2
-    return "\n".join(f"{name:<{width}}{value}" for name, value in pairs)

@@ -1,9 +1,7 @@
-"""Show text from the data set literally: no markup, no terminal control codes.
+"""Show text from the data set literally in the UI: no markup, no terminal control codes.
 
-Values from a user's data set (ids, labels, notes) may contain ``[bold]``-style markup or raw terminal
-control codes such as ANSI escape sequences. The UI must show them as the characters they are and must
-never send a control code to the terminal. ``safe_text`` replaces every control character with a visible
-backslash escape; ``literal`` wraps the result in a ``rich.text.Text``, which is never parsed as markup.
+``safe_text`` (from :mod:`holdfast.textsafe`) escapes control characters; ``literal`` wraps the result in a
+``rich.text.Text``, which is never parsed as markup (values may hold ``[bold]``-style markup).
 """
 
 from __future__ import annotations
@@ -13,50 +11,9 @@ from typing import Any
 from rich.style import Style
 from rich.text import Text
 
-_NAMED = {0x09: "\\t", 0x0A: "\\n", 0x0D: "\\r"}
+from holdfast.textsafe import safe_text
 
-
-def _escape_table() -> dict[int, str]:
-    """Code point -> visible escape for C0/C1 controls, DEL, line separators and bidi controls.
-
-    C0 (U+0000-U+001F), DEL (U+007F) and C1 (U+0080-U+009F) are the control sets of ECMA-48 (5th ed.,
-    1991), the standard that defines the terminal escape sequences. The bidirectional formatting
-    characters (U+061C, U+200E-U+200F, U+202A-U+202E, U+2066-U+2069) are listed in Unicode Standard
-    Annex #9; they can reorder how a line is displayed, so they are escaped too, as are U+2028/U+2029
-    (line and paragraph separators), which can break a line.
-    """
-    table: dict[int, str] = {}
-    for cp in (*range(0x00, 0x20), 0x7F, *range(0x80, 0xA0)):
-        table[cp] = _NAMED.get(cp, f"\\x{cp:02x}")
-    for cp in (0x061C, 0x200E, 0x200F, 0x2028, 0x2029, *range(0x202A, 0x202F), *range(0x2066, 0x206A)):
-        table[cp] = f"\\u{cp:04x}"
-    return table
-
-
-_ESCAPES = _escape_table()
-
-
-def safe_text(value: Any) -> str:
-    """Return ``value`` as a one-line string that is safe to draw literally in a terminal.
-
-    Parameters
-    ----------
-    value
-        Any value; ``None`` gives ``""``, anything else goes through ``str``.
-
-    Returns
-    -------
-    str
-        The text with every control character replaced by a visible escape: ``"\\x1b"`` becomes the
-        four characters ``\\x1b``, a newline becomes ``\\n``, a tab ``\\t``. Markup such as ``[b]`` is
-        left as it is: it only becomes markup if someone parses it, and the UI never does.
-    """
-    if value is None:
-        return ""
-    text = value if isinstance(value, str) else str(value)
-    if text.isprintable():
-        return text
-    return text.translate(_ESCAPES)
+__all__ = ["literal", "safe_text"]
 
 
 def literal(value: Any, style: Style | str = "") -> Text:
