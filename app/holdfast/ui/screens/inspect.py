@@ -75,7 +75,7 @@ SORT_DESCENDING: dict[str, bool] = {"score": True, "flip_count": True, "alpha": 
 FILTERS: dict[str, str] = {
     "all": "all rows",
     "support": "support rows",
-    "loo_miss": "LOO misses (training rows)",
+    "loo_miss": "LOO misses",
     "held_out_miss": "held-out errors",
     "flagged": "flagged rows",
     "undecided": "rows without a decision",
