@@ -38,7 +38,14 @@ from sklearn.svm import SVC
 
 from holdfast.data.prepare import prepare
 from holdfast.data.spec import spec_from_text
-from holdfast.insight.score import MARGIN_CLIP, W_DISSENT, rank_rows, suspicion_score
+from holdfast.insight.score import (
+    LINEAR_CLIP,
+    MARGIN_CLIP,
+    W_DISSENT,
+    W_LINEAR,
+    rank_rows,
+    suspicion_score,
+)
 from holdfast.scan import analyse
 
 SEEDS = (0, 1, 2)
@@ -153,6 +160,19 @@ def test_score_caps_extreme_margins_and_skips_held_out_rows():
     assert rank_rows(score)[4] == 5
 
 
+def test_linear_log_odds_enter_with_their_weight_and_clip():
+    rows = _rows(
+        loo_margin=[-0.5, -0.5, -0.5, -0.5, -0.5],
+        neighbour_dissent_avg=[0.5] * 5,
+        linear_logit=[2.0, -2.0, 40.0, -40.0, np.nan],
+    )
+    score = suspicion_score(rows)
+    # the linear model rejecting the label raises the score, agreeing lowers it; missing counts as 0
+    assert score[1] > score[4] > score[0]
+    assert score[1] - score[0] == pytest.approx(W_LINEAR * 4.0)
+    assert score[3] - score[2] == pytest.approx(2 * W_LINEAR * LINEAR_CLIP)
+
+
 def test_missing_loo_margin_falls_back_to_the_loo_prediction():
     rows = _rows(
         loo_margin=[np.nan, np.nan, 0.5],
@@ -265,12 +285,8 @@ def test_score_beats_the_baseline_on_every_case(planted_cases, record_property):
     # every planted row, once the natural suspects are set aside ...
     ahead = (mean["score_trusted"] > mean["base_trusted"]) | (mean["base_trusted"] == 1.0)
     assert ahead.all(), mean
-    # ... and never behind with them counted as false alarms. (Breast cancer, random flips: 0.905 each
-    # on seeds 0-2, 0.896 against 0.882 on seeds 0-9: there both rankings lose the same 2-3 top places
-    # to the natural suspects, and find nearly every planted row otherwise.)
-    assert (mean["score_all"] >= mean["base_all"]).all(), mean
-    strictly = mean.drop(index=("breast_cancer", "random"))
-    assert ((strictly["score_all"] > strictly["base_all"]) | (strictly["base_all"] == 1.0)).all(), mean
+    # ... and ahead with them counted as false alarms too
+    assert ((mean["score_all"] > mean["base_all"]) | (mean["base_all"] == 1.0)).all(), mean
 
 
 def test_breast_cancer_recall_goals(planted_cases):
@@ -280,6 +296,7 @@ def test_breast_cancer_recall_goals(planted_cases):
     assert bc.loc["random", "score_trusted"] >= GOAL, bc
     # near-boundary flips: the goal holds once the data set's own 16 natural suspects are set aside
     assert bc.loc["near-boundary", "score_trusted"] >= GOAL, bc
-    # with them counted as false alarms about 5 of the 28 top places go to them; still well ahead of the
-    # baseline (about 0.70)
-    assert bc.loc["near-boundary", "score_all"] >= 0.75, bc
+    # NOT MET on the plain count (0.821 on seeds 0-2): 4-6 natural suspects per seed carry stronger
+    # evidence than the 24th-best planted row under every ranking tried (see holdfast.insight.score);
+    # still far ahead of the baseline (0.655)
+    assert bc.loc["near-boundary", "score_all"] >= 0.80, bc

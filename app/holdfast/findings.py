@@ -29,7 +29,11 @@ ROW_COLUMNS: dict[str, str] = {
     "margin": "y * f(x): positive when the training prediction agrees with the label",
     "loo_margin": "y * f(x) under the model trained without this row: negative for a LOO miss",
     "flip_count": "how many other training rows change predicted class when this row is left out",
-    "score": "suspicion score, higher = look first (formula in holdfast.insight.score)",
+    "score": (
+        "suspicion score, higher = look first: -clip(LOO margin, -2, 2) + 0.5 x neighbour dissent"
+        " - 0.1 x clip(logit, -4, 4), logit = out-of-fold logistic log-odds of the label"
+        " (holdfast.insight.score)"
+    ),
     "rank": "1 = most suspicious training row; held-out rows rank after all training rows",
     "flags": "comma-separated names of the flags raised for this row",
     "held_out": "row is in the held-out split: never trained on",

@@ -115,7 +115,9 @@ async def test_detail_shows_header_features_neighbours_and_flips(scan, ctx):
         lines = await show(app, pilot, d, decision="relabel → premium")
         text = "\n".join(lines)
         line_with(lines, d.id, "label", d.label)
-        line_with(lines, "margin", f"{d.margin:+.3f}", "rank", f"{d.rank:,}")
+        line_with(lines, "margin", f"{d.margin:+.3f}", "LOO margin", f"{d.loo_margin:+.3f}")
+        line_with(lines, "logit", f"{d.linear_logit:+.2f}")
+        line_with(lines, "score", f"{d.score:.3f}", "rank", f"{d.rank:,}")
         line_with(lines, "decision", "relabel → premium")
         for name, _reason in d.flags:
             assert name in text

@@ -14,6 +14,7 @@ from holdfast.data.spec import Spec
 from holdfast.engine.loo import LooResult
 from holdfast.findings import ROW_COLUMNS, Findings
 from holdfast.insight import bounds as B
+from holdfast.insight.consensus import linear_label_logit
 from holdfast.insight.flags import FLAG_REASONS, TWIN_TOL, compute_flags
 from holdfast.insight.score import multiscale_dissent, rank_rows, suspicion_score
 from holdfast.learners.base import FittedModel, signed_margins
@@ -120,6 +121,7 @@ def build_rows(
         }
     )
     rows = pd.concat([rows, neighbour_evidence(prepared, k)], axis=1)
+    rows["linear_logit"] = spread(linear_label_logit(prepared.X[tr], prepared.y[tr]), np.nan, float)
     rows = compute_flags(rows)
     rows["score"] = suspicion_score(rows)
     rows["rank"] = rank_rows(rows["score"].to_numpy())

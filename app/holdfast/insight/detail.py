@@ -67,6 +67,9 @@ class RowDetail:
     class_rows: int = 0
     neighbour_dissent: float = float("nan")
     twin_conflicts: int = 0
+    #: the score's other ingredients: LOO margin and out-of-fold logistic log-odds of the label
+    loo_margin: float = float("nan")
+    linear_logit: float = float("nan")
     extra: dict[str, Any] = field(default_factory=dict)
 
 
@@ -149,6 +152,8 @@ class DetailContext:
 
         arrays = {
             "margin": _column(rows, "margin", np.nan, float),
+            "loo_margin": _column(rows, "loo_margin", np.nan, float),
+            "linear_logit": _column(rows, "linear_logit", np.nan, float),
             "alpha": _column(rows, "alpha", 0.0, float),
             "support": _column(rows, "support", False, bool),
             "bounded": _column(rows, "bounded", False, bool),
@@ -365,6 +370,8 @@ class DetailContext:
             class_rows=n_c,
             neighbour_dissent=float(a["neighbour_dissent"][position]),
             twin_conflicts=int(a["twin_conflicts"][position]),
+            loo_margin=float(a["loo_margin"][position]),
+            linear_logit=float(a["linear_logit"][position]),
         )
 
 

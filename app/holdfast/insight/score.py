@@ -3,8 +3,9 @@
 Formula::
 
     score_i = -clip(y_i f_{-i}(x_i), -MARGIN_CLIP, MARGIN_CLIP) + W_DISSENT * D_i
+              - W_LINEAR * clip(L_i, -LINEAR_CLIP, LINEAR_CLIP)
 
-with ``MARGIN_CLIP = 2`` and ``W_DISSENT = 0.5``. Ingredients:
+with ``MARGIN_CLIP = 2``, ``W_DISSENT = 0.5``, ``W_LINEAR = 0.1`` and ``LINEAR_CLIP = 4``. Ingredients:
 
 * ``y_i f_{-i}(x_i)`` (column ``loo_margin``): the decision value for row i of the model refitted without
   row i, signed by its label (own class minus the best other class for more than two classes). Exact:
@@ -19,37 +20,57 @@ with ``MARGIN_CLIP = 2`` and ``W_DISSENT = 0.5``. Ingredients:
   prepared features, the row itself excluded) carrying another label, averaged over k/2, k and 2k
   neighbours (k = ``spec.insight.k``, default 10): the k-nearest-neighbour vote of Cover & Hart 1967,
   "Nearest neighbor pattern classification", IEEE Trans. Information Theory 13(1), at three scales.
+* ``L_i`` (column ``linear_logit``): the log-odds of the row's label against the best other class from a
+  logistic regression fitted on the other folds (5-fold, out of fold; ``holdfast.insight.consensus``): the
+  verdict of a second model family, as in the consensus filter of Brodley & Friedl 1999, "Identifying
+  mislabeled training data", JAIR 11, here a small weighted term rather than a vote. It also makes exact
+  ties rare (rows beyond the LOO clip with full dissent all scored 2.5 before).
 
 Ties are broken by row position (lower first). Held-out rows get no score (NaN) and rank last.
 
 How it was chosen and what it reaches (recall@k, k = number planted; protocol in
 ``tests/test_score.py``: 5% of the rows flipped at random, or at random among the 20% nearest the
-boundary of the clean SVM; RBF, C=1, gamma="scale"). Weights were tuned on seeds 10-21 and are
-checked on seeds 0-2 by the test; the baseline is the out-of-fold probability of the given label from
-5-fold logistic regression. "trusted" sets aside the natural suspects, rows whose clean label the
-clean data already rejects (16 in breast cancer), so that finding a natural error is not counted as a
-false alarm. Mean (min) over seeds 0-2:
+boundary of the clean SVM; RBF, C=1, gamma="scale"). Weights were tuned on seeds 10-21, W_LINEAR was
+then checked on the unseen seeds 22-33, and the test checks seeds 0-2; the baseline is the out-of-fold
+probability of the given label from 5-fold logistic regression. "trusted" sets aside the natural
+suspects, rows whose clean label the clean data already rejects (16 in breast cancer), so that finding a
+natural error is not counted as a false alarm. Mean (min) over seeds 0-2:
 
 ==============================  ============  ============  ==============  ==============
 case                            score         baseline      score trusted   base trusted
 ==============================  ============  ============  ==============  ==============
-breast cancer, random           0.905 (0.89)  0.905 (0.89)  0.988 (0.96)    0.964 (0.96)
-breast cancer, near-boundary    0.821 (0.79)  0.655 (0.61)  0.905 (0.89)    0.774 (0.68)
+breast cancer, random           0.917 (0.89)  0.905 (0.89)  0.988 (0.96)    0.964 (0.96)
+breast cancer, near-boundary    0.821 (0.82)  0.655 (0.61)  0.905 (0.89)    0.774 (0.68)
 digits 3 vs 8, random           1.000 (1.00)  0.537 (0.44)  1.000 (1.00)    0.685 (0.61)
-digits 3 vs 8, near-boundary    0.963 (0.94)  0.556 (0.44)  0.981 (0.94)    0.648 (0.56)
+digits 3 vs 8, near-boundary    0.963 (0.94)  0.556 (0.44)  0.963 (0.94)    0.648 (0.56)
 wine 0 vs rest, random          1.000 (1.00)  0.926 (0.89)  1.000 (1.00)    0.963 (0.89)
 wine 0 vs rest, near-boundary   1.000 (1.00)  0.852 (0.78)  1.000 (1.00)    0.963 (0.89)
 ==============================  ============  ============  ==============  ==============
 
-Over seeds 0-9 (``tests/bench/bench_score_recall.py``) breast cancer gives 0.896 against 0.882 (random)
-and 0.800 against 0.704 (near-boundary). The untrusted near-boundary figure is capped near 0.82: about
-5 of the 28 top places go to natural suspects that every ranking tried puts there. On the demo data
-(77 planted slips among 2,550 training rows) the score reaches 0.662, the baseline 0.442.
+Over seeds 0-9 (``tests/bench/bench_score_recall.py``) breast cancer gives 0.914 against 0.882 (random)
+and 0.807 against 0.704 (near-boundary); without the logistic term it gave 0.896 and 0.800. On the
+unseen seeds 22-33 the logistic term raised plain recall (random 0.869 -> 0.890, near-boundary 0.812 ->
+0.818) and lowered trusted recall a little (0.970 -> 0.961, 0.926 -> 0.917). On the demo data (77
+planted slips among 2,550 training rows) the score reaches 0.688 (0.662 without the logistic term), the
+baseline 0.442.
+
+The plain near-boundary figure on breast cancer stays near 0.82, short of the 0.85 asked for: on seeds
+0-2, 4, 6 and 5 natural suspects (e.g. rows 135, 297, 73, 40, 255: LOO margins -0.4 to -1.5, dissent
+0.6-1.0) carry stronger evidence than the 24th-best planted row, and reaching 0.85 needs at most 4 rows
+other than planted ones there. Rows the clean data already rejects rank above slips that moved a row
+just across the boundary under every ranking tried; a learned non-linear ranker over all the per-row
+evidence, cross-fitted so that it cannot memorize the recurring suspects, also stayed at 0.80-0.82.
 
 Tried and left out (no gain on the tuning seeds): the binary LOO miss, bounded and training margin
-(the first combination: 0.756 near-boundary on breast cancer where this formula gives 0.804), alpha/C,
-the flip count, the row's self-influence y(f(x_i) - f_{-i}(x_i)), the hinge-loss change of the other
-rows without the row (LOO data value), one k instead of three, larger dissent weights.
+(the first combination: 0.756 near-boundary on breast cancer where the LOO-margin formula gives 0.804),
+alpha/C, the flip count, the row's self-influence y(f(x_i) - f_{-i}(x_i)), the hinge-loss change of the
+other rows without the row (LOO data value), one k instead of three, larger dissent weights;
+distance-weighted dissent, class-conditional distance and kernel-density ratios, the neighbours' LOO
+margins; iterative filtering (set aside or flip the top 5-15 rows, refit, re-rank: 0.75-0.78
+near-boundary, Brodley & Friedl 1999); LOO margins averaged over C and gamma; bagged out-of-bag margins
+(Breiman 1996); rank averages and z-scored sums of several learners; the change of the SVM objective
+when the row's label is flipped and the model refitted (Spearman -0.98 with this score among the top
+rows: it repeats the row's own margin).
 """
 
 from __future__ import annotations
@@ -61,6 +82,9 @@ import pandas as pd
 MARGIN_CLIP = 2.0
 #: weight of the averaged neighbour dissent (a share in [0, 1])
 W_DISSENT = 0.5
+#: weight of the out-of-fold logistic log-odds of the label, and its clip (log-odds units)
+W_LINEAR = 0.1
+LINEAR_CLIP = 4.0
 #: neighbour counts used for ``neighbour_dissent_avg``, as multiples of k
 DISSENT_SCALES = (0.5, 1.0, 2.0)
 
@@ -94,8 +118,8 @@ def multiscale_dissent(X: np.ndarray, y: np.ndarray, k: int) -> np.ndarray:
 def suspicion_score(rows: pd.DataFrame) -> np.ndarray:
     """The score of every row of the per-row frame; held-out rows get NaN.
 
-    Uses the columns ``loo_margin`` (falls back to +-1 by ``loo_miss`` where missing) and
-    ``neighbour_dissent_avg`` (0 where missing).
+    Uses the columns ``loo_margin`` (falls back to +-1 by ``loo_miss`` where missing),
+    ``neighbour_dissent_avg`` and ``linear_logit`` (each 0 where missing).
     """
     n = len(rows)
     miss = rows["loo_miss"].to_numpy(dtype=bool)
@@ -110,7 +134,14 @@ def suspicion_score(rows: pd.DataFrame) -> np.ndarray:
         if "neighbour_dissent_avg" in rows
         else np.zeros(n)
     )
-    score = -np.clip(lm, -MARGIN_CLIP, MARGIN_CLIP) + W_DISSENT * dissent
+    linear = (
+        np.nan_to_num(rows["linear_logit"].to_numpy(dtype=float)) if "linear_logit" in rows else np.zeros(n)
+    )
+    score = (
+        -np.clip(lm, -MARGIN_CLIP, MARGIN_CLIP)
+        + W_DISSENT * dissent
+        - W_LINEAR * np.clip(linear, -LINEAR_CLIP, LINEAR_CLIP)
+    )
     score[rows["held_out"].to_numpy(dtype=bool)] = np.nan
     return score
 

@@ -284,6 +284,8 @@ class RowDetailPanel(ScrollView):
         numbers: list[Part] = []
         for title, value in (
             ("margin", fmt_number(d.margin, "+.3f")),
+            ("LOO margin", fmt_number(d.loo_margin, "+.3f")),
+            ("logit", fmt_number(d.linear_logit, "+.2f")),  # out-of-fold logistic log-odds of the label
             ("score", fmt_number(d.score, ".3f")),
             ("rank", f"{d.rank:,}" if d.rank else DASH),
         ):
