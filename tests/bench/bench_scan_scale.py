@@ -110,7 +110,7 @@ def measure(n_rows: int, seed: int, probe: int, sample: int, budget_s: float, wo
         acc["fit_kernel"] = acc.get("fit_kernel", 0.0) + acc.get("kernel", 0.0) - k0
         info["m"] = int(X.shape[0])
         info["precomputed"] = self.problem_.K is not None
-        info["working_set"] = None if self.problem_.working is None else int(len(self.problem_.working))
+        info["working_set"] = None if self.problem_.working is None else len(self.problem_.working)
         return model
 
     orig_loo = loo_mod.exact_loo
@@ -254,7 +254,8 @@ def report(results: list[dict[str, Any]]) -> None:
             "(time of those refits) / (their number) x d, and the total uses that figure. The findings at "
             "that size were built on the partial LOO."
         )
-    print(f"load average at the end: {', '.join(f'{v:.2f}' for v in os.getloadavg())} ({os.cpu_count()} cores)")
+    load = ", ".join(f"{v:.2f}" for v in os.getloadavg())
+    print(f"load average at the end: {load} ({os.cpu_count()} cores)")
 
 
 def _table(title: str, head: list[str], rows: list[list[str]]) -> None:
