@@ -214,3 +214,12 @@ def test_report_without_whatif_when_the_decisions_leave_one_class(session, capsy
     assert "what-if refit skipped" in err and "one class only" in err
     text = out.read_text(encoding="utf-8")
     assert "## What-if" not in text and "## Decisions taken" in text
+
+
+def test_warnings_show_ids_literally(capsys):
+    """Warnings name ids from the data: a terminal escape in one is printed as visible characters."""
+    from holdfast.exporting import _stderr_warning
+
+    _stderr_warning("1 decision names an id not in the data: \x1b[2Jgone\nnext")
+    err = capsys.readouterr().err
+    assert "\x1b" not in err and "\\x1b[2Jgone\\nnext" in err and err.count("\n") == 1

@@ -117,7 +117,7 @@ def cmd_scan(args: argparse.Namespace) -> int:
         result = what_if(scan, decisions, progress=None if args.quiet else ProgressBar("what-if refits"))
         json_path, changed_path = write_whatif(result, out)
         print(f"{args.decisions}: wrote {json_path} and {changed_path}")
-        print(result.text())
+        print("\n".join(safe_text(line) for line in result.text().splitlines()))  # ids are data text
     print(CAUTION)
     return 0
 

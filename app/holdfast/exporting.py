@@ -18,13 +18,14 @@ from holdfast.engine.loo import Progress
 from holdfast.errors import DataError, SessionError, UserError
 from holdfast.export import FORMATS, export_cleaned, export_decisions
 from holdfast.journal import Journal
+from holdfast.textsafe import safe_text
 
 #: How many unmatched ids a warning lists before it says "and N more".
 LIST_IDS = 20
 
 
 def _stderr_warning(message: str) -> None:
-    print(f"holdfast: warning: {message}", file=sys.stderr)
+    print(f"holdfast: warning: {safe_text(message)}", file=sys.stderr)  # may name ids: data text
 
 
 def _check_output(path: Path, *, force: bool, table: bool) -> None:
