@@ -23,8 +23,9 @@ with ``MARGIN_CLIP = 2``, ``W_DISSENT = 0.5``, ``W_LINEAR = 0.1`` and ``LINEAR_C
 * ``L_i`` (column ``linear_logit``): the log-odds of the row's label against the best other class from a
   logistic regression fitted on the other folds (5-fold, out of fold; ``holdfast.insight.consensus``): the
   verdict of a second model family, as in the consensus filter of Brodley & Friedl 1999, "Identifying
-  mislabeled training data", JAIR 11, here a small weighted term rather than a vote. It also makes exact
-  ties rare (rows beyond the LOO clip with full dissent all scored 2.5 before).
+  mislabeled training data", JAIR 11, here a small weighted term rather than a vote. It also splits most
+  former ties (rows beyond the LOO clip with full dissent all scored 2.5); rows where all three
+  ingredients saturate still tie, at 2.9.
 
 Ties are broken by row position (lower first). Held-out rows get no score (NaN) and rank last.
 
