@@ -76,8 +76,19 @@ def _cpu() -> float:
     return ru.ru_utime + ru.ru_stime
 
 
-def measure(n_rows: int, seed: int, probe: int, sample: int, budget_s: float, work: Path) -> dict[str, Any]:
-    """Scan the demo data at ``n_rows`` once; return the phase times and sizes (see the module docstring)."""
+def measure(
+    n_rows: int,
+    seed: int,
+    probe: int,
+    sample: int,
+    budget_s: float,
+    work: Path,
+    precompute_max_rows: int | None = None,
+) -> dict[str, Any]:
+    """Scan the demo data at ``n_rows`` once; return the phase times and sizes (see the module docstring).
+
+    ``precompute_max_rows`` (what-if) overrides ``SVMLearner.precompute_max_rows`` of the scan's learner.
+    """
     import holdfast.engine.loo as loo_mod
     import holdfast.insight.build as build_mod
     import holdfast.insight.explain as explain_mod
@@ -146,7 +157,16 @@ def measure(n_rows: int, seed: int, probe: int, sample: int, budget_s: float, wo
         acc["probe"] = 0.0  # part of the sample, not thrown away
         return res
 
+    orig_make = scan_mod.make_learner
+
+    def make_learner(params: dict[str, Any]) -> Any:
+        learner = orig_make(params)
+        if precompute_max_rows is not None:
+            learner.precompute_max_rows = precompute_max_rows
+        return learner
+
     patches = [
+        (scan_mod, "make_learner", make_learner),
         (scan_mod, "read_table", timed(scan_mod.read_table, "read")),
         (scan_mod, "fingerprint_file", timed(scan_mod.fingerprint_file, "fingerprint")),
         (scan_mod, "prepare", timed(scan_mod.prepare, "prep")),
@@ -192,6 +212,8 @@ def measure(n_rows: int, seed: int, probe: int, sample: int, budget_s: float, wo
 def _run_child(n_rows: int, args: argparse.Namespace, cache: Path) -> dict[str, Any] | None:
     cmd = [sys.executable, __file__, "--one", str(n_rows), "--seed", str(args.seed)]
     cmd += ["--probe", str(args.probe), "--sample", str(args.sample), "--budget-min", str(args.budget_min)]
+    if args.precompute_max_rows is not None:
+        cmd += ["--precompute-max-rows", str(args.precompute_max_rows)]
     env = dict(os.environ, HOLDFAST_CACHE_DIR=str(cache))
     proc = subprocess.run(cmd, env=env, capture_output=True, text=True, check=False)
     lines = [ln for ln in proc.stdout.splitlines() if ln.startswith("{")]
@@ -274,6 +296,12 @@ def main() -> None:
     parser.add_argument("--probe", type=int, default=16, help="support rows refitted to project LOO time")
     parser.add_argument("--sample", type=int, default=200, help="support rows refitted when over budget")
     parser.add_argument("--budget-min", type=float, default=25.0, help="LOO minutes before sampling")
+    parser.add_argument(
+        "--precompute-max-rows",
+        type=int,
+        default=None,
+        help="what-if: precompute the kernel matrix up to this many training rows (app default 12,000)",
+    )
     parser.add_argument("--one", type=int, default=None, help=argparse.SUPPRESS)
     args = parser.parse_args()
     if args.seed is None:
@@ -282,7 +310,10 @@ def main() -> None:
         args.seed = SEED
     if args.one is not None:
         with tempfile.TemporaryDirectory(prefix="holdfast-bench-") as tmp:
-            out = measure(args.one, args.seed, args.probe, args.sample, 60.0 * args.budget_min, Path(tmp))
+            budget_s = 60.0 * args.budget_min
+            out = measure(
+                args.one, args.seed, args.probe, args.sample, budget_s, Path(tmp), args.precompute_max_rows
+            )
         print(json.dumps(out))
         return
     sizes = list(QUICK_SIZES) if args.quick else [int(s) for s in args.sizes.split(",") if s.strip()]
