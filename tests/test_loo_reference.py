@@ -120,10 +120,54 @@ def test_no_precompute_path_matches(cancer_subsample):
     b = SVMLearner(kernel="rbf", C=1.0, precompute_max_rows=10)
     ma, mb = a.fit(X, y), b.fit(X, y)
     assert np.array_equal(ma.support, mb.support)
+    assert a.refit_problem().K is not None and b.refit_problem().K is None
+    assert b.refit_problem().KW is not None  # working-set kernel rows: the fast path above the limit
     ra = exact_loo(ma, a.refit_problem())
     rb = exact_loo(mb, b.refit_problem())
     assert np.array_equal(ra.loo_code, rb.loo_code)
     assert np.array_equal(ra.flip_count, rb.flip_count)
+    assert np.allclose(ra.loo_margin, rb.loo_margin, atol=1e-6)
+
+
+@pytest.mark.parametrize("slack", [0.5, -0.9])
+def test_working_set_rows_above_the_limit_match_leave_one_out(cancer_subsample, monkeypatch, slack):
+    """Above the precompute limit, refits on the working set's kernel rows equal scikit-learn's LeaveOneOut.
+
+    With a negative slack the first working set is little more than the support rows, so refits must add
+    rows that break their optimality condition; those rows' kernel values are computed on demand.
+    """
+    import holdfast.learners.svm as svm
+
+    monkeypatch.setattr(svm, "WORKING_SET_SLACK", slack)
+    X, y = cancer_subsample
+    learner = SVMLearner(kernel="rbf", C=10.0, gamma=0.05, precompute_max_rows=10)
+    model = learner.fit(X, y)
+    problem = learner.refit_problem()
+    assert problem.KW is not None and len(problem.working) < len(y)
+    result = exact_loo(model, problem)
+    assert int((result.loo_code != _reference_loo(X, y, learner)).sum()) == 0
+    rows = np.flatnonzero(model.support)[::7]
+    ref = _reference_flips(X, y, learner, model.prediction, rows)
+    assert np.array_equal(result.flip_count[rows], ref)
+
+
+def test_working_set_kernel_rows_equal_the_full_kernel(cancer_subsample):
+    """Kernel blocks and decision values from the working-set rows (plus rows computed on demand) equal those
+    of the full kernel matrix (scikit-learn's ``rbf_kernel``)."""
+    from sklearn.metrics.pairwise import rbf_kernel
+
+    X, y = cancer_subsample
+    learner = SVMLearner(kernel="rbf", C=1.0, precompute_max_rows=10)
+    learner.fit(X, y)
+    problem = learner.refit_problem()
+    K = rbf_kernel(X, gamma=learner.gamma_)
+    outside = np.setdiff1d(np.arange(len(y)), problem.working)
+    assert len(outside) > 0
+    rows = np.concatenate([problem.working[:5], outside[:5]])
+    cols = np.arange(0, len(y), 3)
+    assert np.allclose(problem._kernel_block(rows, cols), K[np.ix_(rows, cols)])
+    coef = np.linspace(-1.0, 1.0, len(rows))
+    assert np.allclose(problem._decision_all(rows, coef, 0.25), coef @ K[rows] + 0.25)
 
 
 @st.composite

@@ -8,7 +8,11 @@ bound LOO errors <= number of support vectors).
 To keep that shortcut exact, everything except the learner is frozen: ``gamma="scale"``/``"auto"`` and
 ``class_weight="balanced"`` are resolved once on the full training matrix and the same numbers are used by
 every refit. The kernel matrix is computed once and sliced for each refit (``kernel="precomputed"``) when
-it fits in memory.
+it fits in memory (``PRECOMPUTE_MAX_ROWS``). Two-class refits solve on a working set (support rows and rows
+near the margin) and then check every other row's optimality condition. Above the limit, the kernel rows of
+the first working set against all rows are computed once instead (``WORKING_ROWS_MAX_BYTES``), and the few
+rows a refit adds to its working set get theirs computed on demand; beyond that budget (or with more than
+two classes) each refit is a full libsvm fit with its own kernel cache: exact, but several times slower.
 """
 
 from __future__ import annotations
@@ -35,6 +39,9 @@ DEFAULTS: dict[str, Any] = {
 }
 #: Largest training set for which the kernel matrix is precomputed (m*m float64: 1.2 GB at 12,000).
 PRECOMPUTE_MAX_ROWS = 12_000
+#: Above that, two-class refits keep the working set fast with the kernel rows of the initial working set
+#: against all training rows (|W| x m float64), if they take at most this many bytes.
+WORKING_ROWS_MAX_BYTES = 2 * 1024**3
 #: Rows with y f(x) below 1 + this start in the working set of a two-class refit (others join if needed).
 WORKING_SET_SLACK = 0.5
 #: A refit whose training decision values all move by less than this left the model unchanged.
@@ -143,6 +150,11 @@ class SVMRefitProblem:
     X: np.ndarray | None = None
     #: initial working set for two-class refits (support rows and rows near the margin), or None
     working: np.ndarray | None = None
+    #: without K: kernel rows of ``working`` against all training rows (len(working) x m), the position of
+    #: each training row in ``working`` (-1 outside), and (kernel, gamma, degree, coef0) for other rows
+    KW: np.ndarray | None = None
+    w_pos: np.ndarray | None = None
+    kernel_args: tuple[str, float, int, float] | None = None
 
     def _row_c(self, rows: np.ndarray) -> np.ndarray:
         """The box limit C (times the class weight) of each row."""
@@ -151,6 +163,33 @@ class SVMRefitProblem:
         if not weights:
             return np.full(len(rows), c)
         return c * np.array([weights.get(int(k), 1.0) for k in self.y[rows]])
+
+    def _kernel_block(self, rows: np.ndarray, cols: np.ndarray) -> np.ndarray:
+        """Kernel values K(rows, cols): sliced from K or KW, computed for rows outside the working set."""
+        if self.K is not None:
+            return self.K[np.ix_(rows, cols)]
+        assert self.KW is not None and self.w_pos is not None and self.kernel_args is not None
+        pos = self.w_pos[rows]
+        have = pos >= 0
+        out = np.empty((len(rows), len(cols)))
+        out[have] = self.KW[np.ix_(pos[have], cols)]
+        if not have.all():
+            out[~have] = kernel_matrix(self.X[rows[~have]], self.X[cols], *self.kernel_args)  # type: ignore[index]
+        return out
+
+    def _decision_all(self, sv: np.ndarray, coef: np.ndarray, intercept: float) -> np.ndarray:
+        """sum_j coef_j K(sv_j, x) + intercept for every training row x."""
+        if self.K is not None:
+            return coef @ self.K[sv] + intercept  # K symmetric: row gather
+        assert self.KW is not None and self.w_pos is not None and self.kernel_args is not None
+        pos = self.w_pos[sv]
+        have = pos >= 0
+        spread = np.zeros(self.KW.shape[0])
+        spread[pos[have]] = coef[have]
+        dec = spread @ self.KW + intercept  # no |sv| x m copy
+        if not have.all():
+            dec += coef[~have] @ kernel_matrix(self.X[sv[~have]], self.X, *self.kernel_args)  # type: ignore[index]
+        return dec
 
     def _fit_working_set(self, row: int) -> tuple[np.ndarray, np.ndarray | None]:
         """Two classes, precomputed kernel: solve on a working set, then add every row outside it that
@@ -172,15 +211,15 @@ class SVMRefitProblem:
                 keep = np.concatenate([np.arange(row), np.arange(row + 1, m)])
                 pred, full_dec = self.fit_predict(keep)
                 return pred, full_dec
-            clf = SVC(kernel="precomputed", **self.svc_params)
-            clf.fit(self.K[np.ix_(work, work)], y_work)
+            clf = SVC(kernel="precomputed", **self._precomputed_params())
+            clf.fit(self._kernel_block(work, work), y_work)
             sv = work[clf.support_]
             if not np.any(np.abs(clf.dual_coef_[0]) < 0.999 * self._row_c(sv)):
                 # no free support row: the intercept is not unique and libsvm picks it from the bounds of
                 # all rows, so only the whole problem gives the same intercept as a full refit
                 keep = np.concatenate([np.arange(row), np.arange(row + 1, m)])
                 return self.fit_predict(keep)
-            dec = clf.dual_coef_[0] @ self.K[sv] + clf.intercept_[0]  # K symmetric: row gather
+            dec = self._decision_all(sv, clf.dual_coef_[0], float(clf.intercept_[0]))
             outside[:] = True
             outside[work] = False
             outside[row] = False
@@ -189,6 +228,10 @@ class SVMRefitProblem:
                 pred = np.where(dec > 0, clf.classes_[1], clf.classes_[0]).astype(np.int64)
                 return pred, dec
             work = np.union1d(work, violators)
+
+    def _precomputed_params(self) -> dict[str, Any]:
+        """The SVC parameters for a precomputed kernel (without the kernel's own parameters)."""
+        return {k: v for k, v in self.svc_params.items() if k not in ("kernel", "gamma", "degree", "coef0")}
 
     def fit_predict(self, keep: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
         """Fit on rows ``keep``; return predicted codes and decision values for all training rows."""
@@ -223,7 +266,8 @@ class SVMRefitProblem:
         """Refit without training row ``row``; its LOO prediction, the flipped rows, the largest change."""
         m = self.y.shape[0]
         keep = np.concatenate([np.arange(row), np.arange(row + 1, m)])
-        if self.working is not None and self.K is not None and np.unique(self.y[keep]).size == 2:
+        fast = self.K is not None or self.KW is not None
+        if self.working is not None and fast and np.unique(self.y[keep]).size == 2:
             pred, dec = self._fit_working_set(row)
         else:
             pred, dec = self.fit_predict(keep)
@@ -310,12 +354,19 @@ class SVMLearner:
         prediction = self._codes(decision, clf.classes_)
         problem.full_prediction = prediction
         problem.full_decision = decision
-        if K is not None and n_classes == 2 and self.working_set:
+        if n_classes == 2 and self.working_set:
             ypm = np.where(y == 1, 1.0, -1.0)
             near = np.flatnonzero(
                 (ypm * decision < 1.0 + WORKING_SET_SLACK) | np.isin(np.arange(m), clf.support_)
             )
-            if len(near) < 0.8 * m:
+            if len(near) < 0.8 * m and K is not None:
+                problem.working = near
+            elif len(near) < 0.8 * m and len(near) * m * 8 <= WORKING_ROWS_MAX_BYTES:
+                args = (self.kernel, gamma, self.degree, self.coef0)
+                problem.KW = kernel_matrix(X[near], X, *args)
+                problem.w_pos = np.full(m, -1, dtype=np.int64)
+                problem.w_pos[near] = np.arange(len(near))
+                problem.kernel_args = args
                 problem.working = near
         self.problem_ = problem
 
