@@ -107,6 +107,19 @@ async def show(app: App, pilot, detail: RowDetail | None, **kw) -> list[str]:
     return panel_lines(app)
 
 
+async def test_held_out_row_says_predicted_not_loo(scan, ctx):
+    """A held-out row was never trained on: the header shows the model's prediction, not a LOO one."""
+    from dataclasses import replace
+
+    d = replace(ctx.row_detail(_flip_row(scan)), held_out=True)
+    app = Host()
+    async with app.run_test(size=SIZE) as pilot:
+        lines = await show(app, pilot, d)
+        header = line_with(lines, d.id, "label", d.label)
+        assert "→ predicted" in header and "LOO" not in header
+        line_with(lines, "held-out row: never trained on")
+
+
 async def test_detail_shows_header_features_neighbours_and_flips(scan, ctx):
     position = _flip_row(scan)
     d = ctx.row_detail(position)

@@ -275,7 +275,7 @@ class RowDetailPanel(ScrollView):
                 (safe_text(d.id), "id"),
                 ("  label ", "muted"),
                 (safe_text(d.label), ""),
-                (f" {ARROW} LOO ", "muted"),
+                (f" {ARROW} predicted " if d.held_out else f" {ARROW} LOO ", "muted"),  # held out: no LOO
                 (safe_text(d.loo_prediction or DASH), "miss" if miss else "agree"),
             ],
             width,
