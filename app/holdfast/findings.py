@@ -20,8 +20,10 @@ ROW_COLUMNS: dict[str, str] = {
     "id": "stable row id (the spec's id column, else the row position), as text",
     "label": "the label given in the data",
     "prediction": "prediction of the model trained on all training rows",
-    "loo_prediction": "prediction of the model trained without this row (exact for SVM)",
-    "loo_miss": "LOO prediction differs from the label",
+    "loo_prediction": (
+        "prediction of the model trained without this row (exact for SVM); held-out rows: the trained model's"
+    ),
+    "loo_miss": "LOO prediction differs from the label (held-out rows: the trained model's error)",
     "support": "row is in the support set (compression set) of the fitted model",
     "essential": "removing the row changes the model",
     "bounded": "SVM: dual weight alpha at its upper limit C",
