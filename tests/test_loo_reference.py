@@ -170,6 +170,33 @@ def test_working_set_kernel_rows_equal_the_full_kernel(cancer_subsample):
     assert np.allclose(problem._decision_all(rows, coef, 0.25), coef @ K[rows] + 0.25)
 
 
+def test_a_refit_whose_intercept_is_not_unique_matches_a_full_refit():
+    """A case hypothesis found (1-D, linear, C=10): without row 13 every support row of the full refit is
+    bounded and a whole interval of intercepts is optimal; the working-set solve had found a free row at
+    one end of it, the full refit takes its middle, and three near-zero predictions differed. The refit
+    now notices the flat objective and solves the whole problem (the reference is scikit-learn's SVC)."""
+    x = [
+        -1.110751114509097, 0.10050799041473951, 1.7415482047117106, 0.11662117265537934,
+        -0.9625645476589045, -1.5330523275390278, 1.0872205360460692, -0.9845946860616286,
+        -0.15162230023492193, -0.3737911474506912, -1.0381384392388477, -0.2722458972916483,
+        0.7599909318865058, 0.5857703419070982, -0.5678244975053383, 0.630968104630885,
+        1.2007710811766377, -0.4585645462501292, 0.18289944774966643, 0.25999739672996797,
+        -1.4457900746048642, -1.3495573998994792, 0.3376571711056589, 1.2374579205297518,
+        -0.19896722199841754, 1.2644974352549854, 0.28473007648919096, 0.30051716501283854,
+    ]  # fmt: skip
+    X = np.array(x).reshape(-1, 1)
+    y = np.array([0, 1, 1, 0, 0, 0, 1, 0, 0, 0, 0, 1, 1, 1, 0, 1, 1, 0, 0, 1, 0, 0, 0, 1, 0, 1, 1, 0])
+    learner = SVMLearner(kernel="linear", C=10.0)
+    model = learner.fit(X, y)
+    problem = learner.refit_problem()
+    assert problem.working is not None  # the working-set path is the one under test
+    result = exact_loo(model, problem)
+    sv = np.flatnonzero(model.support)
+    assert 13 in sv
+    assert np.array_equal(result.flip_count[sv], _reference_flips(X, y, learner, model.prediction, sv))
+    assert int((result.loo_code != _reference_loo(X, y, learner)).sum()) == 0
+
+
 @st.composite
 def small_problems(draw):
     n = draw(st.integers(min_value=8, max_value=40))

@@ -191,6 +191,28 @@ class SVMRefitProblem:
             dec += coef[~have] @ kernel_matrix(self.X[sv[~have]], self.X, *self.kernel_args)  # type: ignore[index]
         return dec
 
+    def _intercept_is_unique(self, dec: np.ndarray, intercept: float, row: int) -> bool:
+        """True when no other intercept is optimal for the refit's weight vector.
+
+        With w fixed, the primal objective as a function of the intercept b is
+        ``h(b) = sum_i C_i max(0, 1 - y_i (g_i + b))`` (g_i = f(x_i) - intercept), convex and piecewise
+        linear with kinks at t_i = y_i - g_i (Cortes & Vapnik 1995, "Support-vector networks", Machine
+        Learning 20: the soft-margin primal). The optimal b form an interval; when it is wider than a point,
+        several models are optimal and the solver's choice among them depends on every row (libsvm takes
+        the middle of the interval), so a working-set solve may pick another one than a full refit. That
+        happens exactly when h is flat on one side of the solution: a one-sided slope of zero.
+        """
+        y = np.where(self.y == 1, 1.0, -1.0)
+        keep = np.ones(len(y), dtype=bool)
+        keep[row] = False
+        y, t, c = y[keep], (y - (dec - intercept))[keep], self._row_c(np.flatnonzero(keep))
+        eps = 100.0 * float(self.svc_params.get("tol", 1e-6))  # rows this close to the kink sit on it
+        pos, neg = y > 0, y < 0
+        right = -c[pos & (t > intercept + eps)].sum() + c[neg & (t <= intercept + eps)].sum()
+        left = -c[pos & (t > intercept - eps)].sum() + c[neg & (t < intercept - eps)].sum()
+        flat = 1e-9 * float(c.max())
+        return right > flat and left < -flat
+
     def _fit_working_set(self, row: int) -> tuple[np.ndarray, np.ndarray | None]:
         """Two classes, precomputed kernel: solve on a working set, then add every row outside it that
         violates its optimality condition (y f(x) >= 1 - tol for alpha = 0) and solve again, until none does.
@@ -225,6 +247,9 @@ class SVMRefitProblem:
             outside[row] = False
             violators = np.flatnonzero(outside & (ypm * dec < 1.0 - tol))
             if violators.size == 0:
+                if not self._intercept_is_unique(dec, float(clf.intercept_[0]), row):
+                    keep = np.concatenate([np.arange(row), np.arange(row + 1, m)])
+                    return self.fit_predict(keep)
                 pred = np.where(dec > 0, clf.classes_[1], clf.classes_[0]).astype(np.int64)
                 return pred, dec
             work = np.union1d(work, violators)
