@@ -170,6 +170,24 @@ def test_working_set_kernel_rows_equal_the_full_kernel(cancer_subsample):
     assert np.allclose(problem._decision_all(rows, coef, 0.25), coef @ K[rows] + 0.25)
 
 
+@pytest.mark.parametrize("limit", [12_000, 10])
+def test_balanced_class_weights_match_leave_one_out(cancer_subsample, limit):
+    """class_weight="balanced" scales each row's C by its class weight (frozen on the full training set):
+    LOO predictions and flip counts equal scikit-learn's full refits with the same weights, with the kernel
+    precomputed and above the precompute limit."""
+    X, y = cancer_subsample
+    keep = np.r_[np.flatnonzero(y == 0), np.flatnonzero(y == 1)[:60]]  # make the classes unequal
+    X, y = X[keep], y[keep]
+    learner = SVMLearner(kernel="rbf", C=1.0, class_weight="balanced", precompute_max_rows=limit)
+    model = learner.fit(X, y)
+    weights = learner.class_weight_
+    assert weights is not None and weights[0] != weights[1]
+    result = exact_loo(model, learner.refit_problem())
+    assert int((result.loo_code != _reference_loo(X, y, learner)).sum()) == 0
+    rows = np.flatnonzero(model.support)[::5]
+    assert np.array_equal(result.flip_count[rows], _reference_flips(X, y, learner, model.prediction, rows))
+
+
 def test_a_refit_whose_intercept_is_not_unique_matches_a_full_refit():
     """A case hypothesis found (1-D, linear, C=10): without row 13 every support row of the full refit is
     bounded and a whole interval of intercepts is optimal; the working-set solve had found a free row at

@@ -162,7 +162,8 @@ class SVMRefitProblem:
         c = float(self.svc_params["C"])
         if not weights:
             return np.full(len(rows), c)
-        return c * np.array([weights.get(int(k), 1.0) for k in self.y[rows]])
+        per_class = np.array([weights.get(k, 1.0) for k in range(self.n_classes)])
+        return c * per_class[self.y[rows]]
 
     def _kernel_block(self, rows: np.ndarray, cols: np.ndarray) -> np.ndarray:
         """Kernel values K(rows, cols): sliced from K or KW, computed for rows outside the working set."""
