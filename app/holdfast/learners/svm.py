@@ -216,6 +216,11 @@ class SVMRefitProblem:
         flat = 1e-9 * float(c.max())
         return right > flat and left < -flat
 
+    def _fit_without(self, row: int) -> tuple[np.ndarray, np.ndarray | None]:
+        """The whole problem without ``row`` (what a working-set solve falls back to)."""
+        m = self.y.shape[0]
+        return self.fit_predict(np.concatenate([np.arange(row), np.arange(row + 1, m)]))
+
     def _fit_working_set(self, row: int) -> tuple[np.ndarray, np.ndarray | None]:
         """Two classes, precomputed kernel: solve on a working set, then add every row outside it that
         violates its optimality condition (y f(x) >= 1 - tol for alpha = 0) and solve again, until none does.
@@ -233,17 +238,14 @@ class SVMRefitProblem:
         while True:
             y_work = self.y[work]
             if np.unique(y_work).size < 2:  # too small a working set: solve the whole problem
-                keep = np.concatenate([np.arange(row), np.arange(row + 1, m)])
-                pred, full_dec = self.fit_predict(keep)
-                return pred, full_dec
+                return self._fit_without(row)
             clf = SVC(kernel="precomputed", **self._precomputed_params())
             clf.fit(self._kernel_block(work, work), y_work)
             sv = work[clf.support_]
             if not np.any(np.abs(clf.dual_coef_[0]) < 0.999 * self._row_c(sv)):
                 # no free support row: the intercept is not unique and libsvm picks it from the bounds of
                 # all rows, so only the whole problem gives the same intercept as a full refit
-                keep = np.concatenate([np.arange(row), np.arange(row + 1, m)])
-                return self.fit_predict(keep)
+                return self._fit_without(row)
             dec = self._decision_all(sv, clf.dual_coef_[0], float(clf.intercept_[0]))
             outside[:] = True
             outside[work] = False
@@ -251,8 +253,7 @@ class SVMRefitProblem:
             violators = np.flatnonzero(outside & (ypm * dec < 1.0 - tol))
             if violators.size == 0:
                 if not self._intercept_is_unique(dec, float(clf.intercept_[0]), row):
-                    keep = np.concatenate([np.arange(row), np.arange(row + 1, m)])
-                    return self.fit_predict(keep)
+                    return self._fit_without(row)
                 pred = np.where(dec > 0, clf.classes_[1], clf.classes_[0]).astype(np.int64)
                 return pred, dec
             work = np.union1d(work, violators)
