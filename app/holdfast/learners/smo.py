@@ -1,0 +1,512 @@
+"""A two-class soft-margin SVM dual solver of our own (SMO), compiled with numba.
+
+The problem is libsvm's C-SVC dual (Chang & Lin 2011, "LIBSVM: a library for support vector machines",
+ACM TIST 2(3), section 4.1): minimise ``1/2 a'Qa - e'a`` subject to ``y'a = 0`` and ``0 <= a_t <= C_t``,
+with ``Q_st = y_s y_t K(x_s, x_t)`` and a per-row box ``C_t`` (C times the row's class weight).
+
+* Sequential minimal optimisation (Platt 1998, "Sequential minimal optimization: a fast algorithm for
+  training support vector machines") with the second-order working-set selection of Fan, Chen & Lin 2005
+  ("Working set selection using second order information for training support vector machines",
+  JMLR 6), the pair update and clipping of libsvm (Chang & Lin 2011, section 4.1.2; ``tau = 1e-12``).
+* libsvm's stopping rule: ``m(a) - M(a) <= eps`` with ``m(a) = max_{t in I_up} -y_t G_t`` and
+  ``M(a) = min_{t in I_low} -y_t G_t`` (Chang & Lin 2011, eq. 4.13; Keerthi et al. 2001).
+* libsvm's intercept: ``rho`` is the mean of ``y_t G_t`` over free rows, else the middle of the interval
+  the bounded rows allow (Chang & Lin 2011, section 4.1.5); the decision value is
+  ``f(x) = sum_t a_t y_t K(x_t, x) - rho``.
+
+The solver may start from any feasible ``a`` with its gradient ``G = Qa - e`` (alpha seeding, DeCoste &
+Wagstaff 2000, "Alpha seeding for support vector machines", KDD): :func:`seed_without` turns a full solution
+into a feasible start for the problem without one row. A row is taken out of a problem by giving it the box
+``C_t = 0`` (it is then in neither I_up nor I_low and never selected) and skipping it in ``rho``; its
+gradient is still kept up to date, so its decision value under the refit comes for free.
+
+Kernel rows come from a precomputed matrix ``K`` (rows gathered through ``idx``) or, without one, are
+computed from ``X`` on demand (linear, RBF, polynomial) and kept in a small row cache. Everything runs
+with the GIL released (``nogil``) so refits run on joblib threads.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit
+
+#: libsvm's TAU: the curvature used when K_ii + K_jj - 2 K_ij <= 0 (Chang & Lin 2011, section 4.1.2).
+TAU = 1e-12
+#: kernel codes for the numba functions
+KERNEL_CODES = {"linear": 0, "rbf": 1, "poly": 2}
+
+
+@njit(nogil=True, cache=True)
+def _compute_row(X, r, kind, gamma, degree, coef0, idx, out):
+    """out[q] = K(x_r, x_idx[q]) computed from X (linear, RBF or polynomial)."""
+    p = X.shape[1]
+    for q in range(idx.shape[0]):
+        s = idx[q]
+        acc = 0.0
+        if kind == 1:
+            for f in range(p):
+                d = X[r, f] - X[s, f]
+                acc += d * d
+            out[q] = math.exp(-gamma * acc)
+        else:
+            for f in range(p):
+                acc += X[r, f] * X[s, f]
+            if kind == 0:
+                out[q] = acc
+            else:
+                out[q] = (gamma * acc + coef0) ** degree
+
+
+@njit(nogil=True, cache=True)
+def _fetch(t, keep, K, X, kind, gamma, degree, coef0, idx, ident, cache, slot_of, owner, state):
+    """Kernel values K(x_idx[t], x_idx[q]) for every position q: a row of K, or a cached gathered row.
+
+    ``keep`` is a position whose cached row must not be evicted (the other row of the current pair).
+    """
+    if ident:
+        return K[idx[t]]
+    s = slot_of[t]
+    if s >= 0:
+        return cache[s]
+    ncache = cache.shape[0]
+    s = state[0]
+    if owner[s] == keep and keep >= 0:
+        s = (s + 1) % ncache
+    state[0] = (s + 1) % ncache
+    if owner[s] >= 0:
+        slot_of[owner[s]] = -1
+    owner[s] = t
+    slot_of[t] = s
+    row = cache[s]
+    if K.shape[0] > 0:
+        kr = K[idx[t]]
+        for q in range(idx.shape[0]):
+            row[q] = kr[idx[q]]
+    else:
+        _compute_row(X, idx[t], kind, gamma, degree, coef0, idx, row)
+    return row
+
+
+@njit(nogil=True, cache=True)
+def _smo(K, X, kind, gamma, degree, coef0, idx, ident, y, C, QD, alpha, G, eps, max_iter, ncache):
+    """SMO with second-order working-set selection until m(a) - M(a) < eps; alpha and G in place.
+
+    Returns the number of iterations (pair updates) done.
+    """
+    n = idx.shape[0]
+    if ident:
+        ncache = 1
+    cache = np.empty((max(ncache, 2), n if not ident else 1))
+    slot_of = np.full(n, -1, dtype=np.int64)
+    owner = np.full(cache.shape[0], -1, dtype=np.int64)
+    state = np.zeros(1, dtype=np.int64)
+    it = 0
+    while it < max_iter:
+        # i: the most violating row in I_up (libsvm's select_working_set)
+        gmax = -np.inf
+        i = -1
+        for t in range(n):
+            if y[t] > 0:
+                if alpha[t] < C[t] and -G[t] >= gmax:
+                    gmax = -G[t]
+                    i = t
+            elif alpha[t] > 0 and G[t] >= gmax:
+                gmax = G[t]
+                i = t
+        if i == -1:
+            break
+        Ki = _fetch(i, -1, K, X, kind, gamma, degree, coef0, idx, ident, cache, slot_of, owner, state)
+        # j: in I_low, the largest second-order decrease of the objective (Fan, Chen & Lin 2005, WSS 2)
+        gmax2 = -np.inf
+        j = -1
+        obj_min = np.inf
+        for t in range(n):
+            if y[t] > 0:
+                if alpha[t] > 0:
+                    gd = gmax + G[t]
+                    if G[t] >= gmax2:
+                        gmax2 = G[t]
+                else:
+                    continue
+            else:
+                if alpha[t] < C[t]:
+                    gd = gmax - G[t]
+                    if -G[t] >= gmax2:
+                        gmax2 = -G[t]
+                else:
+                    continue
+            if gd > 0:
+                qc = QD[i] + QD[t] - 2.0 * Ki[t]
+                od = -(gd * gd) / (qc if qc > 0 else TAU)
+                if od <= obj_min:
+                    j = t
+                    obj_min = od
+        if gmax + gmax2 < eps or j == -1:
+            break
+        it += 1
+        Kj = _fetch(j, i, K, X, kind, gamma, degree, coef0, idx, ident, cache, slot_of, owner, state)
+        if not ident:  # the fetch of j may have reused a slot; i's row is kept (see _fetch)
+            Ki = cache[slot_of[i]]
+        ci = C[i]
+        cj = C[j]
+        oai = alpha[i]
+        oaj = alpha[j]
+        qc = QD[i] + QD[j] - 2.0 * Ki[j]
+        if qc <= 0:
+            qc = TAU
+        if y[i] != y[j]:
+            delta = (-G[i] - G[j]) / qc
+            diff = alpha[i] - alpha[j]
+            alpha[i] += delta
+            alpha[j] += delta
+            if diff > 0:
+                if alpha[j] < 0:
+                    alpha[j] = 0.0
+                    alpha[i] = diff
+            elif alpha[i] < 0:
+                alpha[i] = 0.0
+                alpha[j] = -diff
+            if diff > ci - cj:
+                if alpha[i] > ci:
+                    alpha[i] = ci
+                    alpha[j] = ci - diff
+            elif alpha[j] > cj:
+                alpha[j] = cj
+                alpha[i] = cj + diff
+        else:
+            delta = (G[i] - G[j]) / qc
+            total = alpha[i] + alpha[j]
+            alpha[i] -= delta
+            alpha[j] += delta
+            if total > ci:
+                if alpha[i] > ci:
+                    alpha[i] = ci
+                    alpha[j] = total - ci
+            elif alpha[j] < 0:
+                alpha[j] = 0.0
+                alpha[i] = total
+            if total > cj:
+                if alpha[j] > cj:
+                    alpha[j] = cj
+                    alpha[i] = total - cj
+            elif alpha[i] < 0:
+                alpha[i] = 0.0
+                alpha[j] = total
+        dai = (alpha[i] - oai) * y[i]
+        daj = (alpha[j] - oaj) * y[j]
+        for t in range(n):
+            G[t] += y[t] * (Ki[t] * dai + Kj[t] * daj)
+    return it
+
+
+@njit(nogil=True, cache=True)
+def _rho(y, C, alpha, G, skip):
+    """libsvm's rho: mean y_t G_t over free rows, else the middle of [lb, ub] from the bounded rows."""
+    ub = np.inf
+    lb = -np.inf
+    nfree = 0
+    sfree = 0.0
+    for t in range(y.shape[0]):
+        if t == skip:
+            continue
+        yg = y[t] * G[t]
+        if alpha[t] >= C[t]:
+            if y[t] < 0:
+                ub = min(ub, yg)
+            else:
+                lb = max(lb, yg)
+        elif alpha[t] <= 0:
+            if y[t] > 0:
+                ub = min(ub, yg)
+            else:
+                lb = max(lb, yg)
+        else:
+            nfree += 1
+            sfree += yg
+    if nfree > 0:
+        return sfree / nfree
+    return (ub + lb) / 2.0
+
+
+def max_iterations(n: int) -> int:
+    """libsvm's iteration cap: max(10,000,000, 100 n) (Chang & Lin 2011, the ``max_iter`` of Solver)."""
+    return max(10_000_000, 100 * n)
+
+
+class Kernel:
+    """Where kernel rows come from: a precomputed matrix, or X with the kernel's parameters."""
+
+    def __init__(
+        self,
+        K: np.ndarray | None = None,
+        X: np.ndarray | None = None,
+        kind: str = "linear",
+        gamma: float = 1.0,
+        degree: int = 3,
+        coef0: float = 0.0,
+        cache_rows: int = 256,
+    ) -> None:
+        self.K = K if K is not None else np.empty((0, 0))
+        self.X = np.ascontiguousarray(X, dtype=np.float64) if X is not None else np.empty((0, 1))
+        self.kind = KERNEL_CODES[kind]
+        self.gamma = float(gamma)
+        self.degree = int(degree)
+        self.coef0 = float(coef0)
+        self.cache_rows = int(cache_rows)
+
+    @property
+    def precomputed(self) -> bool:
+        return self.K.shape[0] > 0
+
+    def diag(self, idx: np.ndarray) -> np.ndarray:
+        """K(x_t, x_t) for the rows ``idx``."""
+        if self.precomputed:
+            return np.ascontiguousarray(self.K[idx, idx], dtype=np.float64)
+        Xi = self.X[idx]
+        sq = np.einsum("ij,ij->i", Xi, Xi)
+        if self.kind == 1:
+            return np.ones(len(idx))
+        if self.kind == 0:
+            return sq
+        return (self.gamma * sq + self.coef0) ** self.degree
+
+    def rows(self, rows: np.ndarray, idx: np.ndarray | None) -> np.ndarray:
+        """K(x_rows, x_idx) as a dense (len(rows), len(idx)) block; ``idx=None`` means every training row."""
+        if idx is None:
+            if self.precomputed:
+                return self.K[rows]
+            idx = np.arange(self.X.shape[0])
+        if self.precomputed:
+            return self.K[np.ix_(rows, idx)]
+        out = np.empty((len(rows), len(idx)))
+        for k, r in enumerate(rows):
+            _compute_row(self.X, int(r), self.kind, self.gamma, self.degree, self.coef0, idx, out[k])
+        return out
+
+
+def solve(
+    kernel: Kernel,
+    idx: np.ndarray,
+    y: np.ndarray,
+    C: np.ndarray,
+    alpha: np.ndarray,
+    G: np.ndarray,
+    eps: float,
+    QD: np.ndarray | None = None,
+    max_iter: int | None = None,
+) -> int:
+    """Run SMO on the rows ``idx`` (positions 0..n-1) from a feasible ``alpha`` with ``G = Qa - e``.
+
+    ``y`` is +1/-1 (float), ``C`` the per-row box (0 takes a row out); ``alpha`` and ``G`` are updated in
+    place. Returns the number of pair updates (``max_iter`` of them at most: libsvm's cap by default).
+    """
+    idx = np.ascontiguousarray(idx, dtype=np.int64)
+    ident = kernel.precomputed and len(idx) == kernel.K.shape[0] and bool(np.all(idx == np.arange(len(idx))))
+    if QD is None:
+        QD = kernel.diag(idx)
+    ncache = kernel.cache_rows if not kernel.precomputed else min(kernel.cache_rows, 64)
+    return int(
+        _smo(
+            kernel.K,
+            kernel.X,
+            kernel.kind,
+            kernel.gamma,
+            kernel.degree,
+            kernel.coef0,
+            idx,
+            ident,
+            y,
+            C,
+            QD,
+            alpha,
+            G,
+            float(eps),
+            max_iterations(len(idx)) if max_iter is None else int(max_iter),
+            max(2, ncache),
+        )
+    )
+
+
+def gradient(kernel: Kernel, idx: np.ndarray, y: np.ndarray, alpha: np.ndarray) -> np.ndarray:
+    """``G = Qa - e`` computed afresh from the rows with a non-zero alpha (no accumulated rounding)."""
+    sv = np.flatnonzero(alpha > 0)
+    G = -np.ones(len(idx))
+    if len(sv):
+        G += y * ((alpha[sv] * y[sv]) @ kernel.rows(idx[sv], idx))
+    return G
+
+
+def rho(y: np.ndarray, C: np.ndarray, alpha: np.ndarray, G: np.ndarray, skip: int = -1) -> float:
+    """libsvm's intercept rule (see the module docstring); ``skip`` is a position left out."""
+    return float(_rho(y, C, alpha, G, int(skip)))
+
+
+def fit_dual(
+    kernel: Kernel, idx: np.ndarray, y: np.ndarray, C: np.ndarray, eps: float
+) -> tuple[np.ndarray, np.ndarray, float, int]:
+    """A cold solve from ``alpha = 0``: (alpha, G, rho, iterations); G recomputed afresh at the end."""
+    n = len(idx)
+    alpha = np.zeros(n)
+    G = -np.ones(n)
+    QD = kernel.diag(idx)
+    its = solve(kernel, idx, y, C, alpha, G, eps, QD)
+    G = gradient(kernel, idx, y, alpha)
+    its += solve(kernel, idx, y, C, alpha, G, eps, QD)  # usually 0: the fresh gradient is still optimal
+    return alpha, G, rho(y, C, alpha, G), its
+
+
+def seed_without(
+    kernel: Kernel,
+    idx: np.ndarray,
+    y: np.ndarray,
+    C: np.ndarray,
+    alpha: np.ndarray,
+    G: np.ndarray,
+    pos: int,
+    all_rows: bool = False,
+) -> int:
+    """Alpha seeding for the problem without position ``pos`` (DeCoste & Wagstaff 2000, KDD).
+
+    Sets ``alpha[pos] = 0`` and ``C[pos] = 0`` and moves its weight onto rows of the same class, nearest
+    first (largest K(x_pos, x_t)), each up to its box, so that ``y'a = 0`` still holds; if the class has
+    too little room, the rest is taken off rows of the other class (always possible: their weights add up
+    to at least alpha[pos]). Only the changed rows' kernel rows update the gradient (O(n) each). Arrays
+    are changed in place; returns the number of rows whose alpha changed.
+    """
+    a = float(alpha[pos])
+    C[pos] = 0.0
+    if a <= 0:
+        alpha[pos] = 0.0
+        return 0
+    k_pos = kernel.rows(np.array([idx[pos]]), None if all_rows else idx)[0]
+    same = np.flatnonzero((y == y[pos]) & (alpha < C))
+    same = same[same != pos]
+    order = same[np.argsort(-k_pos[same], kind="stable")]
+    room = C[order] - alpha[order]
+    take = np.minimum(room, np.maximum(a - (np.cumsum(room) - room), 0.0))
+    used = take > 0
+    changed = [pos]
+    deltas = [-a]
+    alpha[pos] = 0.0
+    rest = a - float(take.sum())
+    for t, d in zip(order[used], take[used], strict=True):
+        old = alpha[t]
+        alpha[t] = min(C[t], old + d)
+        changed.append(int(t))
+        deltas.append(float(alpha[t] - old))
+    if rest > 1e-15 * max(1.0, a):
+        other = np.flatnonzero((y != y[pos]) & (alpha > 0))
+        order = other[np.argsort(-k_pos[other], kind="stable")]
+        have = alpha[order]
+        take = np.minimum(have, np.maximum(rest - (np.cumsum(have) - have), 0.0))
+        for t, d in zip(order[take > 0], take[take > 0], strict=True):
+            old = alpha[t]
+            alpha[t] = max(0.0, old - d)
+            changed.append(int(t))
+            deltas.append(float(alpha[t] - old))
+    rows = np.array(changed, dtype=np.int64)
+    step = np.array(deltas) * y[rows]
+    G += y * (step @ kernel.rows(idx[rows], None if all_rows else idx))
+    return len(rows)
+
+
+#: Largest free set the Newton step of :func:`polish` solves directly ((n+1)^2 system).
+POLISH_MAX_FREE = 1500
+#: Newton-then-short-SMO rounds of a warm refit before a plain SMO run finishes it.
+POLISH_ROUNDS = 4
+#: The violation SMO reaches before the first Newton step of a warm refit.
+LOOSE_EPS = 1e-3
+
+
+def polish(
+    kernel: Kernel,
+    idx: np.ndarray,
+    y: np.ndarray,
+    C: np.ndarray,
+    alpha: np.ndarray,
+    G: np.ndarray,
+    all_rows: bool = False,
+) -> bool:
+    """One Newton step on the face of the box the current alpha lies on (rows at 0 or C stay there).
+
+    On that face the dual is an equality-constrained quadratic: ``Q_FF d + b y_F = -G_F``, ``y_F'd = 0``
+    over the free rows F (the KKT system of the face problem; e.g. Nocedal & Wright 2006, *Numerical
+    Optimization*, section 16.1). When SMO has found the right free set, one step lands on the optimum to
+    rounding error, which saves SMO's slow linear tail (most of its iterations are spent between a
+    violation of 1e-3 and 1e-8). If the step leaves the box, only the part up to the first bound is
+    taken (the objective still decreases along it: a convex quadratic minimised at the full step). The
+    caller always finishes with :func:`solve` at the target tolerance, so the result does not depend on
+    this step succeeding. Returns True when the full step was taken. ``all_rows``: ``idx`` is every
+    training row in order (kernel rows are then plain rows of K).
+    """
+    F = np.flatnonzero((alpha > 0) & (alpha < C))
+    n = len(F)
+    if n == 0 or n > POLISH_MAX_FREE:
+        return False
+    yF = y[F]
+    KF = kernel.rows(idx[F], None if all_rows else idx)
+    A = np.empty((n + 1, n + 1))
+    A[:n, :n] = KF[:, F] * np.outer(yF, yF)
+    A[:n, n] = yF
+    A[n, :n] = yF
+    A[n, n] = 0.0
+    rhs = np.concatenate([-G[F], [0.0]])
+    try:
+        sol = np.linalg.solve(A, rhs)
+    except np.linalg.LinAlgError:
+        sol = np.linalg.lstsq(A, rhs, rcond=None)[0]
+    d = sol[:n]
+    if not np.all(np.isfinite(d)):
+        return False
+    new = alpha[F] + d
+    full = bool(np.all(new >= 0) and np.all(new <= C[F]))
+    if not full:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            lim = np.where(d < 0, -alpha[F] / d, np.where(d > 0, (C[F] - alpha[F]) / d, np.inf))
+        tau = float(np.min(lim))
+        if not tau > 0:
+            return False
+        new = np.clip(alpha[F] + tau * d, 0.0, C[F])
+    delta = new - alpha[F]
+    alpha[F] = new
+    G += y * ((delta * yF) @ KF)
+    return full
+
+
+def refit_without(
+    kernel: Kernel,
+    idx: np.ndarray,
+    y: np.ndarray,
+    C: np.ndarray,
+    alpha: np.ndarray,
+    G: np.ndarray,
+    pos: int,
+    eps: float,
+    all_rows: bool = False,
+    QD: np.ndarray | None = None,
+) -> tuple[float, int]:
+    """Warm-started solve of the problem without position ``pos``; arrays changed in place.
+
+    Alpha seeding (:func:`seed_without`), SMO to a loose violation (1e-3), then rounds of Newton steps on
+    the free set (:func:`polish`, an active-set method: a step stopped by a bound fixes that row and the
+    next step solves the smaller face) each followed by a short SMO run at ``eps``; the last word is
+    always an unlimited SMO run at ``eps``, so the result meets libsvm's stopping rule whatever the
+    Newton steps did. Returns (rho, SMO iterations).
+    """
+    if QD is None:
+        QD = kernel.diag(idx)
+    seed_without(kernel, idx, y, C, alpha, G, pos, all_rows)
+    its = solve(kernel, idx, y, C, alpha, G, max(eps, LOOSE_EPS), QD)
+    short = 50 + len(idx) // 20
+    for _ in range(POLISH_ROUNDS):
+        for _ in range(8):
+            if polish(kernel, idx, y, C, alpha, G, all_rows):
+                break
+        more = solve(kernel, idx, y, C, alpha, G, eps, QD, max_iter=short)
+        its += more
+        if more < short:
+            return rho(y, C, alpha, G, pos), its
+    its += solve(kernel, idx, y, C, alpha, G, eps, QD)
+    return rho(y, C, alpha, G, pos), its
