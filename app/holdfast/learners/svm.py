@@ -26,7 +26,8 @@ from holdfast.errors import SpecError
 from holdfast.learners import smo
 from holdfast.learners.base import FittedModel, signed_margins
 from holdfast.learners.kernels import kernel_matrix, resolve_gamma, row_margin, submatrix
-from holdfast.learners.svm_refit import WARM_TOL, DualModel, SVMRefitProblem
+from holdfast.learners.pairs import PairModel, fit_pairs, pair_decision, vote_codes
+from holdfast.learners.svm_refit import WARM_TOL, DualModel, SVMRefitProblem, tie_tolerance
 
 __all__ = [
     "SVMLearner",
@@ -169,16 +170,33 @@ class SVMLearner:
             X=None if K is not None else X,
         )
         row_c = self.C * (np.array([weights[c] for c in y]) if weights else np.ones(m))
-        clf: SVC | DualModel
+        clf: SVC | DualModel | PairModel
+        own: DualModel | PairModel | None = None
         if K is not None and n_classes == 2 and self.solver == "own":
-            clf = self._fit_own(K, y, row_c, problem)
+            own = self._fit_own(K, y, row_c, problem)
+        elif K is not None and self.solver == "own" and np.all(np.bincount(y, minlength=n_classes) > 0):
+            own = self._fit_own_pairs(K, y, row_c, n_classes, problem)
+        self.svc_on_X_ = False
+        if own is not None and K is not None and self._has_tie(own, K, problem):
+            # a training decision value within the tie tolerance of 0: the full model is the reference's
+            # own computation (libsvm computing the kernel from X), so that its sign is the reference's;
+            # refits still start warm from our solution (an optimum of the same problem)
+            clf = SVC(kernel=self.kernel, gamma=gamma, degree=self.degree, coef0=self.coef0, **svc_params)
+            clf.fit(X, y)
+            self.svc_on_X_ = True
+        elif own is not None:
+            clf = own
         elif K is not None:
             clf = SVC(kernel="precomputed", **svc_params).fit(K, y)
         else:
             clf = SVC(**svc_params).fit(X, y)
         self.svc_ = clf
-        decision = self._train_decision(clf, K, X, n_classes)
+        problem.X_ref = X
+        problem.kernel_args = (self.kernel, gamma, self.degree, self.coef0)
+        decision = self._train_decision(clf, None if self.svc_on_X_ else K, X, n_classes)
         prediction = self._codes(decision, clf.classes_)
+        if self.svc_on_X_:
+            prediction = np.asarray(clf.predict(X), dtype=np.int64)  # libsvm's own vote, as the reference
         problem.full_prediction = prediction
         problem.full_decision = decision
         if n_classes == 2 and self.working_set and problem.alpha is None:
@@ -233,7 +251,35 @@ class SVMLearner:
         problem.solver = kernel
         problem.alpha, problem.grad, problem.c_row = alpha, grad, row_c.astype(np.float64)
         problem.qd = kernel.diag(np.arange(m))
+        problem.near = ypm * (ypm * (grad + 1.0) - rho) < 1.0 + WORKING_SET_SLACK
         return DualModel.from_dual(alpha, ypm, rho)
+
+    def _fit_own_pairs(
+        self, K: np.ndarray, y: np.ndarray, row_c: np.ndarray, n_classes: int, problem: SVMRefitProblem
+    ) -> PairModel:
+        """More than two classes: one-vs-one machines with our own solver (holdfast.learners.pairs); the
+        solutions are kept in ``problem`` so that a refit re-solves only the machines a row is in."""
+        kernel = smo.Kernel(K=K)
+        states = fit_pairs(kernel, y, row_c.astype(np.float64), n_classes, WARM_TOL)
+        problem.solver = kernel
+        problem.pairs = states
+        problem.ovo_full = np.column_stack(
+            [pair_decision(kernel, *s.coef(), s.rho) for s in states]  # all training rows, pair order
+        )
+        return PairModel.from_states(states, n_classes, len(y))
+
+    def _has_tie(self, own: DualModel | PairModel, K: np.ndarray, problem: SVMRefitProblem) -> bool:
+        """True when a training decision value of our own fit is within ``tie_tolerance`` of 0."""
+        k_max = float(np.max(np.diag(K)))
+        if isinstance(own, DualModel):
+            assert problem.alpha is not None and problem.grad is not None
+            ypm = np.where(problem.y == 1, 1.0, -1.0)
+            dec = ypm * (problem.grad + 1.0) + own.intercept_[0]
+            return bool(np.min(np.abs(dec)) < tie_tolerance(self.tol, float(problem.alpha.sum()), k_max))
+        assert problem.pairs is not None and problem.ovo_full is not None
+        sums = np.array([s.alpha.sum() for s in problem.pairs])
+        limits = np.array([tie_tolerance(self.tol, float(a), k_max) for a in sums])
+        return bool(np.any(np.min(np.abs(problem.ovo_full), axis=0) < limits))
 
     def _kernel_r2(self, K: np.ndarray | None, X: np.ndarray, gamma: float) -> float:
         """R^2 = max K - min K over the training kernel values (for the xi-alpha estimate)."""
@@ -243,7 +289,7 @@ class SVMLearner:
         return float(K.max() - K.min())
 
     def _train_decision(
-        self, clf: SVC | DualModel, K: np.ndarray | None, X: np.ndarray, n_classes: int
+        self, clf: SVC | DualModel | PairModel, K: np.ndarray | None, X: np.ndarray, n_classes: int
     ) -> np.ndarray:
         if n_classes == 2 and K is not None:
             return clf.dual_coef_[0] @ K[clf.support_] + clf.intercept_[0]  # K symmetric: row gather
@@ -253,7 +299,7 @@ class SVMLearner:
     def _codes(decision: np.ndarray, classes: np.ndarray) -> np.ndarray:
         if decision.ndim == 1:
             return np.where(decision > 0, classes[1], classes[0]).astype(np.int64)
-        return classes[np.argmax(decision, axis=1)].astype(np.int64)
+        return classes[vote_codes(decision)].astype(np.int64)
 
     # -- after fitting -------------------------------------------------------------------------------
     def refit_problem(self) -> SVMRefitProblem:
@@ -263,7 +309,7 @@ class SVMLearner:
     def decision(self, X: np.ndarray) -> np.ndarray:
         """Decision values for new rows under the fitted model."""
         X = np.ascontiguousarray(X, dtype=np.float64)
-        if self.problem_.K is not None:
+        if self.problem_.K is not None and not self.svc_on_X_:
             cross = kernel_matrix(X, self.X_train_, self.kernel, self.gamma_, self.degree, self.coef0)
             return self.svc_.decision_function(cross)
         return self.svc_.decision_function(X)

@@ -27,11 +27,47 @@ from sklearn.svm import SVC
 from holdfast.learners import smo
 from holdfast.learners.base import RefitOutcome
 from holdfast.learners.kernels import kernel_matrix, row_margin, submatrix
+from holdfast.learners.pairs import PairState, ovr_from_ovo, refit_pairs, vote_codes
 
 #: Stopping tolerance of our own solver (full fit and warm refits). libsvm's default in holdfast is 1e-6;
 #: a warm refit stops at a different point of the tolerance region than a cold solve would, so both are
 #: brought to the optimum itself (the Newton step of ``smo.polish`` makes the tight tolerance cheap).
 WARM_TOL = 1e-9
+
+
+def tie_tolerance(tol: float, alpha_sum: float, k_max: float) -> float:
+    """How close to 0 a decision value may come before its sign is left to libsvm.
+
+    Decision values of two solvers of the same problem can differ by (a) the stopping tolerance: libsvm
+    stops when the largest KKT violation is below ``tol`` (Chang & Lin 2011, "LIBSVM", ACM TIST 2(3),
+    eq. 4.13), which moves f by the order of ``tol``; we allow 10 tol; and (b) libsvm keeps kernel values
+    in single precision in its cache (``Qfloat``), a relative error of about 6e-8 per value, so
+    ``|f error| <= 6e-8 sum_t alpha_t max|K|`` (|K_st| <= max_t K_tt for a positive semi-definite kernel);
+    we allow 1e-6. An exact tie (f = 0 in exact arithmetic, e.g. a row midway between two others) gets
+    whatever sign rounding gives each solver; below this bound holdfast asks libsvm, as the reference does.
+    The factors 10 and 1e-6 are safety margins (common practice), not derived bounds.
+    """
+    return 10.0 * tol + 1e-6 * alpha_sum * k_max
+
+
+def intercept_is_unique(ypm: np.ndarray, g: np.ndarray, c: np.ndarray, intercept: float, eps: float) -> bool:
+    """True when no other intercept is optimal for a two-class solution's weight vector.
+
+    With w fixed, the primal objective as a function of the intercept b is
+    ``h(b) = sum_i C_i max(0, 1 - y_i (g_i + b))`` (g_i = f(x_i) - intercept), convex and piecewise
+    linear with kinks at t_i = y_i - g_i (Cortes & Vapnik 1995, "Support-vector networks", Machine
+    Learning 20: the soft-margin primal). The optimal b form an interval; when it is wider than a point,
+    several models are optimal and the solver's choice among them depends on its final state (libsvm takes
+    the middle of the interval), so a warm-started or working-set solve may pick another one than a cold
+    full refit. That happens exactly when h is flat on one side of the solution: a one-sided slope of zero.
+    Rows within ``eps`` of a kink count as sitting on it.
+    """
+    t = ypm - g
+    pos, neg = ypm > 0, ypm < 0
+    right = -c[pos & (t > intercept + eps)].sum() + c[neg & (t <= intercept + eps)].sum()
+    left = -c[pos & (t > intercept - eps)].sum() + c[neg & (t < intercept - eps)].sum()
+    flat = 1e-9 * float(c.max())
+    return bool(right > flat and left < -flat)
 
 
 @dataclass
@@ -59,7 +95,16 @@ class SVMRefitProblem:
     grad: np.ndarray | None = None
     c_row: np.ndarray | None = None
     qd: np.ndarray | None = None
+    #: rows a warm refit's SMO works on first (y f(x) < 1 + slack under the full model, plus every row
+    #: with a non-zero alpha): shrinking, exact either way (smo._smo)
+    near: np.ndarray | None = None
     eps: float = WARM_TOL
+    #: more than two classes, our own solver: the one-vs-one machines and their decision values
+    pairs: list[PairState] | None = None
+    ovo_full: np.ndarray | None = None
+    #: the training matrix, for whole-problem fallbacks computed exactly as the reference computes them
+    #: (with ``kernel_args``)
+    X_ref: np.ndarray | None = None
 
     def _row_c(self, rows: np.ndarray) -> np.ndarray:
         """The box limit C (times the class weight) of each row."""
@@ -98,31 +143,37 @@ class SVMRefitProblem:
         return dec
 
     def _intercept_is_unique(self, dec: np.ndarray, intercept: float, row: int) -> bool:
-        """True when no other intercept is optimal for the refit's weight vector.
-
-        With w fixed, the primal objective as a function of the intercept b is
-        ``h(b) = sum_i C_i max(0, 1 - y_i (g_i + b))`` (g_i = f(x_i) - intercept), convex and piecewise
-        linear with kinks at t_i = y_i - g_i (Cortes & Vapnik 1995, "Support-vector networks", Machine
-        Learning 20: the soft-margin primal). The optimal b form an interval; when it is wider than a point,
-        several models are optimal and the solver's choice among them depends on every row (libsvm takes
-        the middle of the interval), so a working-set solve may pick another one than a full refit. That
-        happens exactly when h is flat on one side of the solution: a one-sided slope of zero.
-        """
+        """Two classes: :func:`intercept_is_unique` for the refit without ``row`` (decision values dec)."""
         y = np.where(self.y == 1, 1.0, -1.0)
         keep = np.ones(len(y), dtype=bool)
         keep[row] = False
-        y, t, c = y[keep], (y - (dec - intercept))[keep], self._row_c(np.flatnonzero(keep))
-        eps = 100.0 * float(self.svc_params.get("tol", 1e-6))  # rows this close to the kink sit on it
-        pos, neg = y > 0, y < 0
-        right = -c[pos & (t > intercept + eps)].sum() + c[neg & (t <= intercept + eps)].sum()
-        left = -c[pos & (t > intercept - eps)].sum() + c[neg & (t < intercept - eps)].sum()
-        flat = 1e-9 * float(c.max())
-        return right > flat and left < -flat
+        return self._unique(y[keep], (dec - intercept)[keep], self._row_c(np.flatnonzero(keep)), intercept)
+
+    def _tie(self, alpha_sum: float, k_max: float) -> float:
+        """:func:`tie_tolerance` with the learner's ``tol``."""
+        return tie_tolerance(float(self.svc_params.get("tol", 1e-6)), alpha_sum, k_max)
+
+    def _unique(self, ypm: np.ndarray, g: np.ndarray, c: np.ndarray, intercept: float) -> bool:
+        """:func:`intercept_is_unique` with the kink tolerance from the learner's ``tol``."""
+        return intercept_is_unique(ypm, g, c, intercept, 100.0 * float(self.svc_params.get("tol", 1e-6)))
 
     def _fit_without(self, row: int) -> tuple[np.ndarray, np.ndarray | None]:
-        """The whole problem without ``row`` (what a working-set solve falls back to)."""
+        """The whole problem without ``row`` (what a fast refit falls back to). With the training matrix at
+        hand (``X_ref``) this is the reference's own computation: libsvm computing the kernel from the rows,
+        predictions by ``SVC.predict``, so that even a decision value at an exact tie gets its sign."""
         m = self.y.shape[0]
-        return self.fit_predict(np.concatenate([np.arange(row), np.arange(row + 1, m)]))
+        keep = np.concatenate([np.arange(row), np.arange(row + 1, m)])
+        if self.X_ref is None or self.kernel_args is None or np.unique(self.y[keep]).size < 2:
+            return self.fit_predict(keep)
+        kernel, gamma, degree, coef0 = self.kernel_args
+        params = self._precomputed_params()
+        clf = SVC(kernel=kernel, gamma=gamma, degree=degree, coef0=coef0, **params).fit(
+            self.X_ref[keep], self.y[keep]
+        )
+        pred = clf.predict(self.X_ref)
+        dec = clf.decision_function(self.X_ref)
+        full = np.unique(self.y[keep]).size == self.n_classes
+        return pred.astype(np.int64), (dec if full else None)
 
     def _fit_working_set(self, row: int) -> tuple[np.ndarray, np.ndarray | None]:
         """Two classes, precomputed kernel: solve on a working set, then add every row outside it that
@@ -191,7 +242,7 @@ class SVMRefitProblem:
                 pred = np.where(dec > 0, clf.classes_[1], clf.classes_[0]).astype(np.int64)
                 return pred, (dec if self.n_classes == 2 else None)
         dec = clf.decision_function(cross)
-        pred = clf.classes_[np.argmax(dec, axis=1)].astype(np.int64)
+        pred = clf.classes_[vote_codes(dec)].astype(np.int64)
         return pred, (dec if present.size == self.n_classes else None)
 
     def _fit_warm(self, row: int) -> tuple[np.ndarray, np.ndarray | None]:
@@ -203,11 +254,30 @@ class SVMRefitProblem:
         ypm = np.where(self.y == 1, 1.0, -1.0)
         alpha, grad, c = self.alpha.copy(), self.grad.copy(), self.c_row.copy()
         idx = np.arange(m)
-        rho, _ = smo.refit_without(self.solver, idx, ypm, c, alpha, grad, row, self.eps, True, self.qd)
+        rho, _ = smo.refit_without(
+            self.solver, idx, ypm, c, alpha, grad, row, self.eps, True, self.qd, self.near
+        )
         dec = ypm * (grad + 1.0) - rho
-        if not self._intercept_is_unique(dec, -rho, row):
+        if not self._intercept_is_unique(dec, -rho, row) or self._near_zero(dec, alpha):
             return self._fit_without(row)
         return np.where(dec > 0, 1, 0).astype(np.int64), dec
+
+    def _near_zero(self, dec: np.ndarray, alpha: np.ndarray) -> bool:
+        """True when a decision value is too close to 0 for its sign to be the reference's (see
+        :func:`tie_tolerance`); the refit then goes to libsvm cold, the reference's own computation."""
+        assert self.qd is not None
+        tol = float(self.svc_params.get("tol", 1e-6))
+        return bool(np.min(np.abs(dec)) < tie_tolerance(tol, float(alpha.sum()), float(self.qd.max())))
+
+    def _fit_pairs(self, row: int) -> tuple[np.ndarray, np.ndarray | None]:
+        """More than two classes: warm refits of the machines ``row`` is a support row of, the rest reused
+        (holdfast.learners.pairs); the whole problem with libsvm when an intercept is not unique."""
+        assert self.solver is not None and self.pairs is not None and self.ovo_full is not None
+        ovo = refit_pairs(self.solver, self.pairs, self.ovo_full, row, self.eps, self._unique, self._tie)
+        if ovo is None:
+            return self._fit_without(row)
+        dec = ovr_from_ovo(ovo, self.n_classes)
+        return vote_codes(dec), dec
 
     def refit_without(self, row: int) -> RefitOutcome:
         """Refit without training row ``row``; its LOO prediction, the flipped rows, the largest change."""
@@ -217,6 +287,8 @@ class SVMRefitProblem:
         two = np.unique(self.y[keep]).size == 2
         if self.alpha is not None and two:
             pred, dec = self._fit_warm(row)
+        elif self.pairs is not None and np.unique(self.y[keep]).size == self.n_classes:
+            pred, dec = self._fit_pairs(row)
         elif self.working is not None and fast and two:
             pred, dec = self._fit_working_set(row)
         else:
