@@ -134,3 +134,24 @@ def test_near_flat_intercepts_in_one_dimension():
             assert int((result.loo_code != reference).sum()) == 0, (seed, C)
             sv = np.flatnonzero(model.support)
             assert np.array_equal(result.flip_count[sv], _flips(X, y, learner, model.prediction, sv))
+
+
+@pytest.mark.parametrize("name", ["cancer", "wine"])
+def test_linear_kernel_above_the_precompute_limit(name):
+    """Linear kernel above the precompute limit: our solver computes kernel rows from X on demand (no m x m
+    matrix, no kernel matrix at all); LOO predictions and flip counts equal scikit-learn's full refits,
+    held-out decision values equal SVC's on the full training set."""
+    X, y = _load(name)
+    learner = SVMLearner(kernel="linear", C=0.1, precompute_max_rows=10)
+    model = learner.fit(X, y)
+    problem = learner.refit_problem()
+    assert problem.K is None and problem.solver is not None and not problem.solver.precomputed
+    full = _svc(learner).fit(X, y)
+    assert np.array_equal(full.predict(X), model.prediction)
+    new = X[:40] + 0.1
+    assert np.allclose(learner.decision(new), full.decision_function(new), atol=1e-4)
+    result = exact_loo(model, problem)
+    reference = cross_val_predict(_svc(learner), X, y, cv=LeaveOneOut())
+    assert int((result.loo_code != reference).sum()) == 0
+    rows = np.flatnonzero(model.support)[::5]
+    assert np.array_equal(result.flip_count[rows], _flips(X, y, learner, model.prediction, rows))

@@ -16,7 +16,7 @@ from sklearn.datasets import load_breast_cancer, load_digits, load_iris, load_wi
 from sklearn.preprocessing import StandardScaler
 from sklearn.svm import SVC
 
-from holdfast.learners import smo
+from holdfast.learners import smo, warm
 from holdfast.learners.kernels import kernel_matrix, resolve_gamma
 
 
@@ -118,12 +118,12 @@ def test_warm_refit_equals_a_cold_solve_without_the_row(kernel):
     alpha, grad, _, _ = smo.fit_dual(kern, idx, ypm, c, 1e-10)
     for row in np.flatnonzero(alpha > 0)[::9]:
         a, g, cc = alpha.copy(), grad.copy(), c.copy()
-        smo.seed_without(kern, idx, ypm, cc, a, g, int(row), True)
+        warm.seed_without(kern, idx, ypm, cc, a, g, int(row), True)
         assert a[row] == 0 and cc[row] == 0
         assert abs(float(ypm @ a)) < 1e-10 and np.all(a >= 0) and np.all(a <= cc)
         assert np.allclose(g, smo.gradient(kern, idx, ypm, a), atol=1e-9)  # the O(n) gradient update
         a, g, cc = alpha.copy(), grad.copy(), c.copy()
-        rho, _ = smo.refit_without(kern, idx, ypm, cc, a, g, int(row), 1e-10, True)
+        rho, _ = warm.refit_without(kern, idx, ypm, cc, a, g, int(row), 1e-10, True)
         keep = np.delete(idx, row)
         cold_c = c.copy()
         cold_c[row] = 0.0

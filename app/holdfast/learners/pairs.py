@@ -5,7 +5,7 @@ rows of those two classes, with class a as +1 (Knerr, Personnaz & Dreyfus 1990; 
 comparison of methods for multiclass support vector machines", IEEE TNN 13). A row enters only the k-1
 machines of its own class, and removing it leaves every machine where its dual weight is 0 unchanged
 (the same argument as for the support rows of one machine, Vapnik 1995), so a refit without it re-solves
-only the machines where it is a support row, each warm-started (:func:`holdfast.learners.smo.refit_without`).
+only the machines where it is a support row, each warm-started (:func:`holdfast.learners.warm.refit_without`).
 
 Decision values follow scikit-learn's SVC with ``decision_function_shape="ovr"``: votes of the pairwise
 machines (f_ab > 0 votes for a) plus the sum of the pairwise decision values squashed into (-1/3, 1/3)
@@ -20,7 +20,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from holdfast.learners import smo
+from holdfast.learners import smo, warm
 
 
 @dataclass
@@ -63,9 +63,7 @@ def fit_pairs(
 
 def pair_decision(kernel: smo.Kernel, rows: np.ndarray, coef: np.ndarray, rho: float) -> np.ndarray:
     """f_ab(x) = sum_t y_t alpha_t K(x_t, x) - rho for every training row x."""
-    if len(rows) == 0:
-        return np.full(kernel.n_rows, -rho)
-    return coef @ kernel.rows(rows, None) - rho
+    return kernel.combo(rows, coef, None) - rho
 
 
 def ovr_from_ovo(ovo: np.ndarray, n_classes: int) -> np.ndarray:
@@ -102,9 +100,19 @@ class PairModel:
     support_: np.ndarray
     dual_coef_: np.ndarray
     classes_: np.ndarray
+    #: ovr-shaped decision values of the training rows, and (kernel, gamma, degree, coef0)
+    train_decision: np.ndarray
+    kernel_args: tuple[str, float, int, float]
 
     @classmethod
-    def from_states(cls, states: list[PairState], n_classes: int, m: int) -> PairModel:
+    def from_states(
+        cls,
+        states: list[PairState],
+        n_classes: int,
+        m: int,
+        ovo_full: np.ndarray,
+        args: tuple[str, float, int, float],
+    ) -> PairModel:
         weight = np.zeros(m)
         pairs = []
         for s in states:
@@ -112,11 +120,24 @@ class PairModel:
             rows, coef = s.coef()
             pairs.append((rows, coef, s.rho))
         sv = np.flatnonzero(weight > 0)
-        return cls(pairs, n_classes, sv, weight[sv][None, :], np.arange(n_classes))
+        train = ovr_from_ovo(ovo_full, n_classes)
+        return cls(pairs, n_classes, sv, weight[sv][None, :], np.arange(n_classes), train, args)
 
     def decision_function(self, K_cross: np.ndarray) -> np.ndarray:
         """ovr-shaped decision values from kernel values of rows against the training rows."""
         ovo = np.column_stack([K_cross[:, rows] @ coef - rho for rows, coef, rho in self.pairs])
+        return ovr_from_ovo(ovo, self.n_classes)
+
+    def decision_rows(self, X: np.ndarray, X_train: np.ndarray) -> np.ndarray:
+        """ovr-shaped decision values of new rows ``X`` from the kernel values against support rows only."""
+        from holdfast.learners.kernels import kernel_matrix
+
+        ovo = np.empty((len(X), len(self.pairs)))
+        for k, (rows, coef, rho) in enumerate(self.pairs):
+            for s in range(0, len(X), 2048):
+                ovo[s : s + 2048, k] = (
+                    kernel_matrix(X[s : s + 2048], X_train[rows], *self.kernel_args) @ coef - rho
+                )
         return ovr_from_ovo(ovo, self.n_classes)
 
 
@@ -140,7 +161,7 @@ def refit_pairs(
         if pos >= len(s.idx) or s.idx[pos] != row or s.alpha[pos] <= 0:
             continue
         alpha, grad, c = s.alpha.copy(), s.grad.copy(), s.c.copy()
-        rho, _ = smo.refit_without(kernel, s.idx, s.ypm, c, alpha, grad, pos, eps, False, s.qd, s.near)
+        rho, _ = warm.refit_without(kernel, s.idx, s.ypm, c, alpha, grad, pos, eps, False, s.qd, s.near)
         keep = np.arange(len(s.idx)) != pos
         g = (s.ypm * (grad + 1.0))[keep]
         if not unique(s.ypm[keep], g, c[keep], -rho):  # type: ignore[operator]

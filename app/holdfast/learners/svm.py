@@ -1,4 +1,4 @@
-"""Soft-margin SVM (scikit-learn's SVC, libsvm) with exact leave-one-out by refitting support rows.
+"""Soft-margin SVM with exact leave-one-out by refitting support rows.
 
 Why only support rows: the SVM solution depends on the training rows only through those with a non-zero
 dual weight; removing any other row leaves the optimum unchanged, so its leave-one-out prediction is its
@@ -7,12 +7,13 @@ bound LOO errors <= number of support vectors).
 
 To keep that shortcut exact, everything except the learner is frozen: ``gamma="scale"``/``"auto"`` and
 ``class_weight="balanced"`` are resolved once on the full training matrix and the same numbers are used by
-every refit. The kernel matrix is computed once and sliced for each refit (``kernel="precomputed"``) when
-it fits in memory (``PRECOMPUTE_MAX_ROWS``). Two-class refits solve on a working set (support rows and rows
-near the margin) and then check every other row's optimality condition. Above the limit, the kernel rows of
-the first working set against all rows are computed once instead (``WORKING_ROWS_MAX_BYTES``), and the few
-rows a refit adds to its working set get theirs computed on demand; beyond that budget (or with more than
-two classes) each refit is a full libsvm fit with its own kernel cache: exact, but several times slower.
+every refit. The kernel matrix is computed once (``kernel="precomputed"``) when it fits in memory
+(``PRECOMPUTE_MAX_ROWS``). Then the full fit is our own solver (:mod:`holdfast.learners.smo`; one-vs-one
+machines for more classes, :mod:`holdfast.learners.pairs`) and every refit starts warm from its solution
+(:mod:`holdfast.learners.svm_refit`). Above the limit, scikit-learn's SVC fits the model and two-class
+refits solve on a working set with the kernel rows of the first working set against all rows
+(``WORKING_ROWS_MAX_BYTES``); beyond that budget (or with more than two classes) each refit is a full
+libsvm fit: exact, but slow. ``solver="libsvm"`` gives the SVC engine below the limit too.
 """
 
 from __future__ import annotations
@@ -58,6 +59,9 @@ WORKING_ROWS_MAX_BYTES = 2 * 1024**3
 #: 0.2 rather than 0.5: 11-25% less time per refit on the demo data at 3,000-15,000 rows, the same results
 #: (the KKT check adds any row that is needed); 0.0 needs a second solve too often (bench_scan_scale.py).
 WORKING_SET_SLACK = 0.2
+#: Kernel rows cached by our solver when it computes them from X (linear kernel above the limit):
+#: 128 x m float64 per solve (100 MB at 100,000 rows).
+LINEAR_CACHE_ROWS = 128
 #: A refit whose training decision values all move by less than this left the model unchanged.
 ESSENTIAL_TOL = 1e-4
 
@@ -172,12 +176,17 @@ class SVMLearner:
         row_c = self.C * (np.array([weights[c] for c in y]) if weights else np.ones(m))
         clf: SVC | DualModel | PairModel
         own: DualModel | PairModel | None = None
-        if K is not None and n_classes == 2 and self.solver == "own":
-            own = self._fit_own(K, y, row_c, problem)
-        elif K is not None and self.solver == "own" and np.all(np.bincount(y, minlength=n_classes) > 0):
-            own = self._fit_own_pairs(K, y, row_c, n_classes, problem)
+        kernel: smo.Kernel | None = None
+        if self.solver == "own" and K is not None:
+            kernel = smo.Kernel(K=K)
+        elif self.solver == "own" and self.kernel == "linear":  # no m x m matrix: K(x_i, .) = X x_i
+            kernel = smo.Kernel(X=X, kind="linear", cache_rows=LINEAR_CACHE_ROWS)
+        if kernel is not None and n_classes == 2:
+            own = self._fit_own(kernel, y, row_c, problem)
+        elif kernel is not None and np.all(np.bincount(y, minlength=n_classes) > 0):
+            own = self._fit_own_pairs(kernel, y, row_c, n_classes, problem)
         self.svc_on_X_ = False
-        if own is not None and K is not None and self._has_tie(own, K, problem):
+        if own is not None and kernel is not None and self._has_tie(own, kernel, problem):
             # a training decision value within the tie tolerance of 0: the full model is the reference's
             # own computation (libsvm computing the kernel from X), so that its sign is the reference's;
             # refits still start warm from our solution (an optimum of the same problem)
@@ -193,7 +202,10 @@ class SVMLearner:
         self.svc_ = clf
         problem.X_ref = X
         problem.kernel_args = (self.kernel, gamma, self.degree, self.coef0)
-        decision = self._train_decision(clf, None if self.svc_on_X_ else K, X, n_classes)
+        if own is not None and clf is own:
+            decision = own.train_decision
+        else:
+            decision = self._train_decision(clf, None if self.svc_on_X_ else K, X, n_classes)
         prediction = self._codes(decision, clf.classes_)
         if self.svc_on_X_:
             prediction = np.asarray(clf.predict(X), dtype=np.int64)  # libsvm's own vote, as the reference
@@ -240,37 +252,39 @@ class SVMLearner:
         )
 
     def _fit_own(
-        self, K: np.ndarray, y: np.ndarray, row_c: np.ndarray, problem: SVMRefitProblem
+        self, kernel: smo.Kernel, y: np.ndarray, row_c: np.ndarray, problem: SVMRefitProblem
     ) -> DualModel:
-        """Two classes: our own SMO solver (holdfast.learners.smo) on the precomputed kernel, to
-        ``WARM_TOL``; the solution is kept in ``problem`` as the warm start of every refit."""
+        """Two classes: our own SMO solver (holdfast.learners.smo), to ``WARM_TOL``; the solution is kept
+        in ``problem`` as the warm start of every refit."""
         m = len(y)
-        kernel = smo.Kernel(K=K)
         ypm = np.where(y == 1, 1.0, -1.0)
         alpha, grad, rho, _ = smo.fit_dual(kernel, np.arange(m), ypm, row_c.astype(np.float64), WARM_TOL)
         problem.solver = kernel
         problem.alpha, problem.grad, problem.c_row = alpha, grad, row_c.astype(np.float64)
         problem.qd = kernel.diag(np.arange(m))
-        problem.near = ypm * (ypm * (grad + 1.0) - rho) < 1.0 + WORKING_SET_SLACK
-        return DualModel.from_dual(alpha, ypm, rho)
+        dec = ypm * (grad + 1.0) - rho
+        problem.near = ypm * dec < 1.0 + WORKING_SET_SLACK
+        return DualModel.from_dual(alpha, ypm, rho, dec, self._args())
 
     def _fit_own_pairs(
-        self, K: np.ndarray, y: np.ndarray, row_c: np.ndarray, n_classes: int, problem: SVMRefitProblem
+        self, kernel: smo.Kernel, y: np.ndarray, row_c: np.ndarray, n_classes: int, problem: SVMRefitProblem
     ) -> PairModel:
         """More than two classes: one-vs-one machines with our own solver (holdfast.learners.pairs); the
         solutions are kept in ``problem`` so that a refit re-solves only the machines a row is in."""
-        kernel = smo.Kernel(K=K)
         states = fit_pairs(kernel, y, row_c.astype(np.float64), n_classes, WARM_TOL)
         problem.solver = kernel
         problem.pairs = states
         problem.ovo_full = np.column_stack(
             [pair_decision(kernel, *s.coef(), s.rho) for s in states]  # all training rows, pair order
         )
-        return PairModel.from_states(states, n_classes, len(y))
+        return PairModel.from_states(states, n_classes, len(y), problem.ovo_full, self._args())
 
-    def _has_tie(self, own: DualModel | PairModel, K: np.ndarray, problem: SVMRefitProblem) -> bool:
+    def _args(self) -> tuple[str, float, int, float]:
+        return (self.kernel, self.gamma_, self.degree, self.coef0)
+
+    def _has_tie(self, own: DualModel | PairModel, kernel: smo.Kernel, problem: SVMRefitProblem) -> bool:
         """True when a training decision value of our own fit is within ``tie_tolerance`` of 0."""
-        k_max = float(np.max(np.diag(K)))
+        k_max = float(np.max(kernel.diag(np.arange(len(problem.y)))))
         if isinstance(own, DualModel):
             assert problem.alpha is not None and problem.grad is not None
             ypm = np.where(problem.y == 1, 1.0, -1.0)
@@ -309,6 +323,8 @@ class SVMLearner:
     def decision(self, X: np.ndarray) -> np.ndarray:
         """Decision values for new rows under the fitted model."""
         X = np.ascontiguousarray(X, dtype=np.float64)
+        if isinstance(self.svc_, DualModel | PairModel) and self.problem_.K is None:
+            return self.svc_.decision_rows(X, self.X_train_)
         if self.problem_.K is not None and not self.svc_on_X_:
             cross = kernel_matrix(X, self.X_train_, self.kernel, self.gamma_, self.degree, self.coef0)
             return self.svc_.decision_function(cross)
