@@ -169,6 +169,7 @@ def main() -> None:
     parser.add_argument("--flip-sample", type=int, default=40)
     parser.add_argument("--quick", action="store_true", help="small sizes, for a smoke run")
     parser.add_argument("--naive-only", action="store_true", help="only the fully timed naive case")
+    parser.add_argument("--scale-only", action="store_true", help="skip the fully timed naive case")
     args = parser.parse_args()
     if args.case:
         m, kind, full, sample, flips = args.case
@@ -176,7 +177,7 @@ def main() -> None:
         return
     if args.quick:
         args.sizes, args.side_size, args.naive_rows = "600,1200", 800, 400
-    cases = [(args.naive_rows, "base", "1", "0", str(args.flip_sample))]
+    cases = [] if args.scale_only else [(args.naive_rows, "base", "1", "0", str(args.flip_sample))]
     if not args.naive_only:
         cases += [(int(s), "base", "0", str(args.naive_sample), "0") for s in args.sizes.split(",") if s]
         side = ("imbalanced", "overlapping")
