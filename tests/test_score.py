@@ -233,7 +233,9 @@ def _plant(X: np.ndarray, y: np.ndarray) -> list[Case]:
     clean_lr = _oof_proba_of_label(X, y) < 0.5
     natural = np.flatnonzero(name_rows["loo_miss"].to_numpy() | clean_lr)
     trusted = np.setdiff1d(np.arange(m), natural)
-    closeness = np.abs(name_rows["margin"].to_numpy())[trusted]
+    # rounded: free support rows all sit at |margin| = 1 up to the solver's tolerance, and their order
+    # (hence the planted rows) must not depend on which solver or tolerance produced the last digits
+    closeness = np.round(np.abs(name_rows["margin"].to_numpy())[trusted], 4)
     near = trusted[np.argsort(closeness, kind="stable")[: round(BOUNDARY_POOL * m)]]
     n = round(FLIP_SHARE * m)
     out = []
@@ -296,7 +298,8 @@ def test_breast_cancer_recall_goals(planted_cases):
     assert bc.loc["random", "score_trusted"] >= GOAL, bc
     # near-boundary flips: the goal holds once the data set's own 16 natural suspects are set aside
     assert bc.loc["near-boundary", "score_trusted"] >= GOAL, bc
-    # NOT MET on the plain count (0.821 on seeds 0-2): 4-6 natural suspects per seed carry stronger
+    # NOT MET on the plain count (0.786 on seeds 0-2): 4-6 natural suspects per seed carry stronger
     # evidence than the 24th-best planted row under every ranking tried (see holdfast.insight.score);
-    # still far ahead of the baseline (0.655)
-    assert bc.loc["near-boundary", "score_all"] >= 0.80, bc
+    # still far ahead of the baseline (0.655). (0.821 was measured while the boundary pool's order, and so
+    # the planted rows, came from the solver's last digits; the same with either solver now.)
+    assert bc.loc["near-boundary", "score_all"] >= 0.77, bc
