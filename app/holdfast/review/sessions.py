@@ -7,6 +7,9 @@ import os
 import tempfile
 from pathlib import Path
 
+from holdfast.errors import SessionError
+from holdfast.textsafe import clip
+
 #: Suffix of session files: ``packhouse.parquet`` -> ``packhouse.holdfast.db``.
 SESSION_SUFFIX = ".holdfast.db"
 
@@ -20,6 +23,8 @@ def user_data_dir() -> Path:
 
 def _folder_writable(folder: Path) -> bool:
     """True when a file can really be created in ``folder`` (also catches read-only mounts)."""
+    if not os.access(folder, os.W_OK | os.X_OK):
+        return False
     try:
         with tempfile.TemporaryFile(dir=folder):
             return True
@@ -49,3 +54,22 @@ def default_session_path(data_path: str | Path) -> tuple[Path, str | None]:
     fallback = user_data_dir() / f"{stem}-{digest}{SESSION_SUFFIX}"
     message = f"{data.parent}: folder is not writable; session kept in {fallback}"
     return fallback, message
+
+
+def refuse_moved_positions(
+    meta: dict[str, str | None], fingerprint: str, data: Path, session: Path, has_decisions: bool
+) -> None:
+    """Stop when a session that identifies rows by position meets a changed data file.
+
+    Without an id column a row's id is its position; once rows are added, removed or reordered the
+    positions name other rows, so applying the decisions would change the wrong rows. Raises
+    :class:`SessionError` (one line) when the data's fingerprint differs from the session's, the session
+    names no id column and it holds any decision or note.
+    """
+    if meta.get("id_column") or meta.get("fingerprint") == fingerprint or not has_decisions:
+        return
+    raise SessionError(
+        f"{clip(str(data))}: the data changed since session {clip(str(session))} was made, and that session "
+        f"identifies rows by position (no id column), so its decisions would land on other rows; restore "
+        f"the data file, or start a new session (--session NEW.db), best with an id column (data.id)"
+    )
