@@ -107,6 +107,11 @@ def cmd_scan(args: argparse.Namespace) -> int:
     out = Path(args.out)
     if out.exists() and not out.is_dir():
         raise UserError(f"{out}: --out must be a folder")
+    _check_writable(out, "--out")
+    if not args.no_cache and spec.run.cache:
+        from holdfast.engine.cache import cache_root
+
+        _check_writable(cache_root(), "the scan cache", "; or run with --no-cache")
     decisions = None
     if getattr(args, "decisions", None):
         from holdfast.review.decisions import read_decisions
@@ -141,6 +146,21 @@ def cmd_scan(args: argparse.Namespace) -> int:
         print("\n".join(safe_text(line) for line in result.text().splitlines()))  # ids are data text
     print(CAUTION)
     return 0
+
+
+def _check_writable(folder: Path, what: str, more: str = "") -> None:
+    """Before any long work: ``folder`` exists or can be made, and a file can be created in it."""
+    import tempfile
+
+    from holdfast.atomic import environment_error
+
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        with tempfile.TemporaryFile(dir=folder):
+            pass
+    except OSError as exc:
+        err = environment_error(folder, exc)
+        raise UserError(f"{str(err).replace('cannot write', f'{what} cannot be written', 1)}{more}") from exc
 
 
 def cmd_demo(args: argparse.Namespace) -> int:
