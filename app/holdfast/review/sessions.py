@@ -39,6 +39,8 @@ def default_session_path(data_path: str | Path) -> tuple[Path, str | None]:
     folder is not writable it goes to :func:`user_data_dir`, named after the data file plus the first
     8 hex digits of the SHA-256 of its absolute path, so same-named files in different folders do not
     share a session. SQLite's WAL mode needs to create files beside the journal, hence the folder test.
+    A session that already exists beside the data in a folder that is no longer writable is kept: it is
+    opened read-only, never replaced by a fresh session elsewhere that lacks its decisions.
 
     Returns
     -------
@@ -50,6 +52,11 @@ def default_session_path(data_path: str | Path) -> tuple[Path, str | None]:
     beside = data.with_name(stem + SESSION_SUFFIX)
     if _folder_writable(data.parent):
         return beside, None
+    if beside.is_file():  # kept where it is, read-only: never replaced by a fresh session elsewhere
+        return beside, (
+            f"{data.parent}: folder is not writable; session {beside} opens read-only (copy the data and "
+            f"the session to a writable folder to record decisions)"
+        )
     digest = hashlib.sha256(str(data).encode()).hexdigest()[:8]
     fallback = user_data_dir() / f"{stem}-{digest}{SESSION_SUFFIX}"
     message = f"{data.parent}: folder is not writable; session kept in {fallback}"
