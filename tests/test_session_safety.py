@@ -147,7 +147,10 @@ def test_undo_in_one_process_never_undoes_anothers_acknowledged_decision(tmp_pat
     ).close()
     with Journal.open(path) as mine:
         mine.record("c1", "confirm")
-        other = "from holdfast.review.journal import Journal\nimport sys\nJournal.open(sys.argv[1]).record('c2', 'exclude')"
+        other = (
+            "import sys\nfrom holdfast.review.journal import Journal\n"
+            "Journal.open(sys.argv[1]).record('c2', 'exclude')"
+        )
         subprocess.run([sys.executable, "-c", other, str(path)], check=True, env=_env())
         with pytest.raises(SessionError, match="another open copy"):
             mine.undo()

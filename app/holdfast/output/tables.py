@@ -110,7 +110,6 @@ def _write_frame(frame: pd.DataFrame, path: Path, schema: pa.Schema | None = Non
             frame.to_parquet(p, index=False, schema=schema)
 
     else:
-
         safe = csv_safe_frame(frame)
 
         def writer(p: Path) -> None:

@@ -508,4 +508,3 @@ class Journal:
                 self._insert(conn, row_id, decision or "clear", new_label, note, time, action, kind)
                 for row_id, decision, new_label, note in before
             ]
-

@@ -98,7 +98,8 @@ def lock_path(session: str | Path) -> Path:
 
 
 def _me() -> bytes:
-    return (json.dumps({"pid": os.getpid(), "host": socket.gethostname(), "started": utc_now()}) + "\n").encode()
+    me = {"pid": os.getpid(), "host": socket.gethostname(), "started": utc_now()}
+    return (json.dumps(me) + "\n").encode()
 
 
 def read_holder(path: Path) -> Holder:
