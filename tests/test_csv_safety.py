@@ -29,6 +29,7 @@ HOSTILE = {
     "\r=1": "'\\r=1",
     "'quoted": "''quoted",
 }
+IDS = list(HOSTILE)
 ORDINARY = ["L0001", "-1.5", "+3", "1e-3", "apple", "Zoë's crate", ""]
 
 
@@ -76,13 +77,13 @@ def test_decisions_csv_is_guarded_and_parquet_is_raw(tmp_path: Path) -> None:
         assert not cell or cell[0] not in "=+-@\t\r" or cell == "-1.5", cell
         assert "\x1b" not in cell and "\x07" not in cell
     raw = pd.read_parquet(pq_path).set_index("id")
-    assert raw.loc[list(HOSTILE)[0], "new_label"] == "=1+1"
-    assert raw.loc[list(HOSTILE)[1], "note"].startswith("\x1b]0;")
+    assert raw.loc[IDS[0], "new_label"] == "=1+1"
+    assert raw.loc[IDS[1], "note"].startswith("\x1b]0;")
     back = read_decisions(csv_path).set_index("id")  # the apostrophes come off when read back
     assert list(back.index) == list(HOSTILE)[:4]
-    assert back.loc[list(HOSTILE)[0], "new_label"] == "=1+1"
-    assert back.loc[list(HOSTILE)[0], "note"] == "@mention -x"
-    assert back.loc[list(HOSTILE)[3], "note"] == "-1.5"
+    assert back.loc[IDS[0], "new_label"] == "=1+1"
+    assert back.loc[IDS[0], "note"] == "@mention -x"
+    assert back.loc[IDS[3], "note"] == "-1.5"
 
 
 def test_cleaned_csv_is_guarded_numbers_untouched(tmp_path: Path) -> None:
