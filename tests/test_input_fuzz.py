@@ -190,7 +190,7 @@ def test_random_tables_load_and_prepare_or_fail_cleanly(
     assert len(prepared.y) == len(loaded) and len(prepared.classes) >= 2
 
 
-# ------------------------------------------------------------------------------------- cases found by the fuzz
+# ------------------------------------------------------------------------------ cases found by the fuzz
 @pytest.mark.parametrize(
     "text",
     [
