@@ -408,7 +408,7 @@ async def test_export_decisions_and_cleaned_data_from_the_ui(ds: DataSet, tmp_pa
 
 
 async def test_report_export_is_disabled_with_a_reason_when_missing(ds: DataSet, monkeypatch) -> None:  # type: ignore[no-untyped-def]
-    import holdfast.ui.screens.inspect as inspect_module
+    import holdfast.ui.screens.inspect_work as inspect_module
 
     monkeypatch.setattr(inspect_module, "_module_exists", lambda name: name != "holdfast.output.report")
     app = make_app(ds)
