@@ -44,25 +44,6 @@ from .inspector_kit import (
 )
 
 
-@pytest.fixture(scope="module")
-def shared(tmp_path_factory: pytest.TempPathFactory) -> tuple[DataSet, Path]:
-    """One data set and one result cache for the module: the first test scans, the others hit the cache."""
-    root = tmp_path_factory.mktemp("inspector")
-    return write_dataset(root / "data"), root / "cache"
-
-
-@pytest.fixture
-def ds(shared: tuple[DataSet, Path], tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> DataSet:
-    """The shared data set copied into this test's folder (so each test has its own session file)."""
-    base, cache = shared
-    monkeypatch.setenv("HOLDFAST_CACHE_DIR", str(cache))
-    data = tmp_path / base.data.name
-    data.write_bytes(base.data.read_bytes())
-    spec_path = tmp_path / base.spec_path.name
-    spec_path.write_text(base.spec_path.read_text())
-    return DataSet(data, spec_path, base.frame)
-
-
 def session_path(ds: DataSet) -> Path:
     return ds.data.with_name("packhouse.holdfast.db")
 

@@ -264,6 +264,8 @@ class InspectScreen(BackgroundWork, Screen[None]):
             return self.book is not None  # hidden until there are rows to act on
         if action == "cancel":
             return self._busy is not None
+        if action == "restore":
+            return self.maximized is not None
         if action == "rescan":
             return self._scan_state in ("failed", "cancelled")
         return True
@@ -440,13 +442,32 @@ class InspectScreen(BackgroundWork, Screen[None]):
         panel.display = not panel.display
         if panel.display:
             self._update_detail_now()
+        self.focus_table()
 
     def action_overview(self) -> None:
         self._toggle_maximized(self.query_one(OverviewPanel))
 
     def watch_maximized(self, maximized: Any) -> None:
-        """The whole-screen overview shows each bound's full source; the compact one a short citation."""
+        """The whole-screen overview shows each bound's full source; the compact one a short citation.
+
+        Back from a whole-screen view, the keys go to the table again (up/down move the highlighted row).
+        """
         self.query_one(OverviewPanel).set_full(maximized is self.query_one(OverviewPanel))
+        if maximized is None:
+            self.focus_table()
+
+    def focus_table(self) -> None:
+        """Give the keys back to the row table, whose highlighted row every decision key acts on."""
+        if self.maximized is None and self.is_attached:
+            self.table.focus(scroll_visible=False)
+
+    def on_screen_resume(self) -> None:
+        """A dialog or another screen closed: the keys go back to the table."""
+        self.focus_table()
+
+    def action_restore(self) -> None:
+        """Leave the whole-screen detail or overview."""
+        self.minimize()
 
     def action_help(self) -> None:
         from holdfast.ui.screens.help import HelpScreen

@@ -34,6 +34,7 @@ _KEYS: tuple[tuple[str, str, str, bool, str | None], ...] = (
     ("w", "what_if", "What-if", True, None),
     ("escape", "cancel", "Cancel", True, None),
     ("ctrl+r", "rescan", "Resume scan", True, None),
+    ("enter", "restore", "Back to the rows", False, None),
 )
 #: What each action does (the help screen and the command palette show it).
 HELP: dict[str, str] = {
@@ -57,6 +58,7 @@ HELP: dict[str, str] = {
     "what_if": "Refit with the decisions applied and compare the bounds and LOO errors",
     "cancel": "Stop the running scan or what-if refit (finished refits are kept)",
     "rescan": "Start the scan again; it resumes from the refits already finished",
+    "restore": "Leave the whole-screen detail or overview (escape does too)",
 }
 #: Binding ids that differ from ``holdfast.<action>`` (kept: users' keymaps refer to them).
 _IDS = {"export": "holdfast.review.decisions"}
