@@ -100,7 +100,13 @@ def composition(rows: pd.DataFrame) -> dict[str, int]:
     }
 
 
-def explain(rows: pd.DataFrame, X_train: np.ndarray, params: Mapping[str, Any]) -> dict[str, Any]:
+def explain(
+    rows: pd.DataFrame,
+    X_train: np.ndarray,
+    params: Mapping[str, Any],
+    *,
+    distances: dict[str, float] | None = None,
+) -> dict[str, Any]:
     """The ``explanation`` object of the summary.
 
     Parameters
@@ -113,6 +119,8 @@ def explain(rows: pd.DataFrame, X_train: np.ndarray, params: Mapping[str, Any]) 
         The prepared matrix of the training rows (for the distance statistics of the hints).
     params : mapping
         The learner's resolved parameters (family, kernel, C, gamma as a number).
+    distances : dict, optional
+        :func:`distance_stats` of ``X_train`` when already computed.
 
     Returns
     -------
@@ -155,7 +163,9 @@ def explain(rows: pd.DataFrame, X_train: np.ndarray, params: Mapping[str, Any]) 
         "ratio_largest_to_smallest": float(counts.max() / counts.min()) if len(counts) else 1.0,
     }
 
-    dist = distance_stats(X_train) if m >= 2 else {}
+    dist = distances
+    if dist is None:
+        dist = distance_stats(X_train) if m >= 2 else {}
     wrong = (tr["prediction"].astype(object) != tr["label"].astype(object)).to_numpy()
     bounded_wrong = tr["bounded"].to_numpy(dtype=bool) & wrong
     context = {
