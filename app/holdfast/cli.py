@@ -95,15 +95,22 @@ def cmd_scan(args: argparse.Namespace) -> int:
     if out.exists() and not out.is_dir():
         raise UserError(f"{out}: --out must be a folder")
     decisions = None
+    frame = None
     if getattr(args, "decisions", None):
-        from holdfast.review.decisions import read_decisions
+        from holdfast.data.load import read_table
+        from holdfast.review.decisions import check_relabels, read_decisions
 
         decisions = read_decisions(args.decisions)  # read first: a bad file fails before the scan
+        frame = read_table(Path(args.data))
+        if spec.data.label in frame.columns:  # else the scan names the missing column
+            label = spec.data.label
+            check_relabels(decisions, frame[label], label_column=label, source=str(args.decisions))
     scan = run_scan(
         args.data,
         spec,
         progress=None if args.quiet else ProgressBar(),
         use_cache=False if args.no_cache else None,
+        frame=frame,
     )
     rows_path, summary_path = scan.findings.write(out)
     print(f"{args.data}: {'from cache; ' if scan.from_cache else ''}wrote {rows_path} and {summary_path}")
@@ -114,7 +121,12 @@ def cmd_scan(args: argparse.Namespace) -> int:
     if decisions is not None:
         from holdfast.review.whatif import what_if, write_whatif
 
-        result = what_if(scan, decisions, progress=None if args.quiet else ProgressBar("what-if refits"))
+        result = what_if(
+            scan,
+            decisions,
+            progress=None if args.quiet else ProgressBar("what-if refits"),
+            use_cache=False if args.no_cache else None,
+        )
         json_path, changed_path = write_whatif(result, out)
         print(f"{args.decisions}: wrote {json_path} and {changed_path}")
         print("\n".join(safe_text(line) for line in result.text().splitlines()))  # ids are data text

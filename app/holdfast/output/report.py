@@ -39,10 +39,13 @@ CAUTIONS: tuple[str, ...] = (
     "(medical, credit, safety), label changes follow the domain's own review and local rules.",
     "The LOO errors are exact refits of the support rows with the solver tolerance shown; a different "
     "tolerance may move the counts slightly.",
-    "The xi-alpha count is an upper bound on the LOO errors under its theorem; the span estimate is an "
-    "estimate and can miss LOO errors. Both formulas are implemented from memory of the papers "
-    "(see holdfast.insight.bounds).",
-    "A what-if refit shows what the model would be if the decisions were right; it does not check them.",
+    "The xi-alpha count is an upper bound on the LOO errors under its theorem (Joachims 2000, Estimating "
+    "the generalization performance of a SVM efficiently, ICML); the span estimate (Vapnik & Chapelle "
+    "2000, Bounds on error expectation for support vector machines, Neural Computation 12(9)) is an "
+    "estimate and can miss LOO errors.",
+    "A what-if refit shows what the model would be if the decisions were right; it does not check them. "
+    "Its LOO error is partly self-fulfilling (relabelled rows are judged against their new labels); the "
+    "held-out error is the honest check.",
 )
 
 # characters with an inline meaning in CommonMark or GitHub-flavoured Markdown (tables, strikethrough, math)
@@ -373,6 +376,8 @@ def _whatif_section(w: WhatIf) -> list[str]:
         *_table(["", "before", "after"], [[md_escape(n), _num(b), _num(a)] for n, b, a in w.comparison]),
         "",
         f"Rows whose status changed (label, support, LOO miss, prediction, or excluded): {len(w.changed)}.",
+        "",
+        f"**Caution.** {md_escape(w.caution)}",
         "",
     ]
     lines.extend(f"- {md_escape(n)}" for n in w.notes)

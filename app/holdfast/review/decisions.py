@@ -123,6 +123,37 @@ def _validate(frame: pd.DataFrame, source: Path) -> None:
         raise DataError(f"{source}: row id '{dup.iloc[0]}' appears more than once")
 
 
+#: classes listed in the message about a relabel to an unknown class
+LIST_CLASSES = 12
+
+
+def check_relabels(
+    decisions: Mapping[str, Decision] | pd.DataFrame, labels: pd.Series, *, label_column: str, source: str
+) -> None:
+    """Refuse a relabel to a value that is not a class of the label column (DataError naming the row id,
+    the new label and the classes). ``labels`` is the data's label column; ``source`` names the decisions."""
+    table = decisions_dict(decisions) if isinstance(decisions, pd.DataFrame) else decisions
+    values = pd.unique(labels.dropna())
+    texts = {str(v) for v in values}
+    caster = _LabelCaster(labels, label_column)
+    for rid, d in table.items():
+        if d.decision != "relabel" or d.new_label is None or d.new_label in texts:
+            continue
+        try:
+            known = caster(d.new_label) in set(values.tolist())
+        except (DataError, TypeError):
+            known = False
+        if not known:
+            shown = sorted(texts)
+            listed = ", ".join(shown[:LIST_CLASSES]) + (
+                f" and {len(shown) - LIST_CLASSES} more" if len(shown) > LIST_CLASSES else ""
+            )
+            raise DataError(
+                f"{source}: row id '{rid}' is relabelled to '{d.new_label}', which is not a class of label "
+                f"column '{label_column}' (classes: {listed})"
+            )
+
+
 def apply_decisions(
     data: pd.DataFrame,
     decisions: Mapping[str, Decision] | pd.DataFrame,
