@@ -111,8 +111,8 @@ def test_export_all_three(session, capsys):
     rows = session["rows"].set_index("id")
     for rec in decisions.iloc[:5].itertuples():
         assert rec.score == pytest.approx(rows.loc[rec.id, "score"])
-        assert ("" if pd.isna(rec.flags) else rec.flags) == rows.loc[rec.id, "flags"]
-    assert "loo_miss" in decisions.set_index("id").loc[session["top"], "flags"]
+        assert ("" if pd.isna(rec.flag_names) else rec.flag_names) == rows.loc[rec.id, "flag_names"]
+    assert "loo_miss" in decisions.set_index("id").loc[session["top"], "flag_names"]
 
     # cleaned set = the same edit done with pandas: relabel the top row, drop S-010, columns and order kept
     expected = frame.copy()

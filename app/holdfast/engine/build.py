@@ -25,14 +25,16 @@ def _class_values(prepared: Prepared, codes: np.ndarray) -> pd.Series:
     classes = prepared.classes
     labels = prepared.labels
     values = [classes[c] if c >= 0 else None for c in codes]
-    return pd.Series(values, dtype=labels.dtype if labels.dtype != object else object)
+    missing = bool((np.asarray(codes) < 0).any())
+    return pd.Series(values, dtype=object if missing or labels.dtype == object else labels.dtype)
 
 
 def neighbour_evidence(prepared: Prepared, k: int) -> pd.DataFrame:
     """Neighbour evidence for every training row (NaN/-1/0 for held-out rows).
 
     ``neighbour_dissent`` and ``neighbour_majority``: share of the k nearest training rows with another
-    label, and their most common label; ``neighbour_dissent_avg``: the dissent averaged over
+    label, and their most common label (a label value, as in ``label``; missing for held-out rows);
+    ``neighbour_dissent_avg``: the dissent averaged over
     ``DISSENT_SCALES`` times k neighbours (k/2, k, 2k: less noisy than one k, used by the suspicion
     score); ``twin_conflicts``: other rows within ``TWIN_TOL`` (near-identical) carrying another label.
     """
@@ -56,7 +58,7 @@ def neighbour_evidence(prepared: Prepared, k: int) -> pd.DataFrame:
         {
             "neighbour_dissent": dissent,
             "neighbour_dissent_avg": dissent_avg,
-            "neighbour_majority": majority,
+            "neighbour_majority": _class_values(prepared, majority),
             "twin_conflicts": twins,
         }
     )
@@ -213,6 +215,13 @@ def bounds_summary(
             "(d + LOO misses outside the support set) / m",
             "misses_outside": loo_miss_outside,
         },
+    }
+    if loo_miss_outside == 0:
+        # rows outside the support set keep the model when left out, and an SVM classifies them correctly
+        # (margin >= 1), so none is a LOO miss: the two numbers coincide
+        out["support_fraction"]["note"] = "= LOO bound (no LOO miss outside the support set)"
+        out["loo_bound"]["note"] = "= d/m: no LOO miss outside the support set"
+    out |= {
         "loo_error": {
             "name": "exact LOO error",
             "value": float(((loo.loo_code != y) & ~_pending_of(rows, tr)).mean()),
@@ -295,6 +304,16 @@ def span_summary(model: FittedModel, m: int) -> dict[str, Any] | None:
     }
 
 
+def _learner_params(params: dict[str, Any], prepared: Prepared) -> dict[str, Any]:
+    """The learner's resolved parameters for the summary, with class weights keyed by label (the learner
+    keys them by class code)."""
+    out = dict(params)
+    weights = out.get("class_weight_resolved")
+    if isinstance(weights, dict):
+        out["class_weight_resolved"] = {str(prepared.classes[int(c)]): w for c, w in weights.items()}
+    return out
+
+
 def _pending_of(rows: pd.DataFrame, tr: np.ndarray) -> np.ndarray:
     """The training rows' ``loo_pending`` (all False in finished findings)."""
     if "loo_pending" not in rows:
@@ -350,7 +369,7 @@ def build_findings(
         },
         "spec": spec.to_dict(),
         "spec_fingerprint": spec.fingerprint(),
-        "learner": model.params,
+        "learner": _learner_params(model.params, prepared),
         "classes": [str(c) for c in prepared.classes],
         "class_counts": {str(c): int(n) for c, n in zip(prepared.classes, counts, strict=True)},
         "m": m,

@@ -24,6 +24,8 @@ import pandas as pd
 from holdfast import __version__
 from holdfast.atomic import atomic_write_bytes
 from holdfast.errors import UserError
+from holdfast.insight.explain import percent
+from holdfast.output.terminal import same_support_and_loo_bound
 from holdfast.review.decisions import decisions_dict
 from holdfast.review.events import Decision
 from holdfast.review.journal import Journal
@@ -226,8 +228,22 @@ def _summary(scan: Scan) -> list[str]:
 
 def _bounds(scan: Scan) -> list[str]:
     b = scan.findings.summary.get("bounds", {})
+    same = same_support_and_loo_bound(b)
     rows = []
     for key, item in b.items():
+        if same and key == "loo_bound":
+            continue
+        if same and key == "support_fraction":
+            lb = b["loo_bound"]
+            rows.append(
+                [
+                    md_escape(f"{item.get('name', key)} = {lb.get('name', 'LOO bound')}"),
+                    _num(item.get("value")),
+                    md_escape("misses_outside=0: no LOO miss outside the support set, so (d + 0)/m = d/m"),
+                    md_escape(f"{item.get('source', '')}; {lb.get('source', '')}"),
+                ]
+            )
+            continue
         detail = []
         for k in ("count", "k", "n", "errors", "misses_outside", "count_bounded_as_errors"):
             if k in item:
@@ -281,7 +297,7 @@ def _explanation(scan: Scan) -> list[str]:
     f = e["flagged"]
     lines.append(
         f"Rows flagged with label evidence ({', '.join(md_escape(x) for x in f['flags'])}) account for "
-        f"{f['support_rows_flagged']} of the {d} support rows ({100 * f['share_of_d']:.0f}%)."
+        f"{f['support_rows_flagged']} of the {d} support rows ({percent(f['support_rows_flagged'], d)})."
     )
     t = e["twins"]
     lines.append(f"Twin conflicts: {t['rows']} rows ({t['support_rows']} of them support rows).")
@@ -321,7 +337,7 @@ def _top_rows(scan: Scan, decisions: dict[str, Decision], top: int) -> list[str]
                 _num(float(r.score), 3),
                 _num(float(r.margin), 3),
                 str(int(r.flip_count)),
-                md_escape(str(r.flags).replace(",", ", ")),
+                md_escape(str(r.flag_names).replace(",", ", ")),
                 md_escape(decision),
             ]
         )

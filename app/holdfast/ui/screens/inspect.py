@@ -62,7 +62,7 @@ TABLE_COLUMNS: tuple[ColumnSpec, ...] = (
     ColumnSpec("loo_prediction", "LOO pred", None, "left"),
     ColumnSpec("decision", "decision", 20, "left"),
     ColumnSpec("score", "score", 7, "right", lambda v: format_float(v, ".3f")),
-    ColumnSpec("flags", "flags", 38, "left", lambda v: format_text(v).replace(",", " ")),
+    ColumnSpec("flag_names", "flags", 38, "left", lambda v: format_text(v).replace(",", " ")),
     ColumnSpec("flip_count", "flips", 5, "right"),
     ColumnSpec("margin", "margin", 7, "right", lambda v: format_float(v, "+.2f")),
     ColumnSpec("alpha", "alpha", 6, "right", lambda v: format_float(v, ".3g")),
@@ -809,7 +809,7 @@ class InspectScreen(Screen[None]):
                 held = rows["held_out"].to_numpy(dtype=bool)
                 mask = rows["loo_miss"].to_numpy(dtype=bool) & (held if key == "held_out_miss" else ~held)
             elif key == "flagged":
-                mask = rows["flags"].fillna("").to_numpy(dtype=object) != ""
+                mask = rows["flag_names"].fillna("").to_numpy(dtype=object) != ""
             else:
                 mask = self.labels == value
             self._masks[key] = np.asarray(mask, dtype=bool)
