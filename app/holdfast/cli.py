@@ -10,56 +10,17 @@ from __future__ import annotations
 import argparse
 import os
 import sys
-import time
 from pathlib import Path
 
 from holdfast import __version__
 from holdfast.errors import Cancelled, UserError
+from holdfast.output.progress import ProgressBar, end_open_lines
 from holdfast.textsafe import safe_text
 
 CAUTION = (
     "Flags are statistical evidence, not proof of a wrong label. In regulated or safety-relevant data "
     "(medical, credit, safety), label changes follow the domain's own review and local rules."
 )
-
-
-class ProgressBar:
-    """A one-line progress bar with ETA on stderr (plain lines when stderr is not a terminal)."""
-
-    def __init__(self, label: str = "refits", stream=None) -> None:
-        self.label = label
-        self.stream = stream or sys.stderr
-        self.tty = self.stream.isatty()
-        self.last = 0.0
-        self.last_pct = -10
-
-    def __call__(self, done: int, total: int, eta: float | None) -> None:
-        now = time.monotonic()
-        finished = done >= total
-        if self.tty:
-            if not finished and now - self.last < 0.1:
-                return
-            self.last = now
-            width = 30
-            frac = done / total if total else 1.0
-            bar = "#" * int(frac * width) + "-" * (width - int(frac * width))
-            eta_s = f" ETA {_fmt_seconds(eta)}" if eta is not None and not finished else ""
-            self.stream.write(f"\r{self.label} [{bar}] {done}/{total}{eta_s}   ")
-            if finished:
-                self.stream.write("\n")
-            self.stream.flush()
-        else:
-            pct = int(100 * done / total) if total else 100
-            if pct >= self.last_pct + 10 or finished:
-                self.last_pct = pct
-                eta_s = f", ETA {_fmt_seconds(eta)}" if eta is not None and not finished else ""
-                self.stream.write(f"{self.label}: {done}/{total} ({pct}%{eta_s})\n")
-                self.stream.flush()
-
-
-def _fmt_seconds(s: float) -> str:
-    s = max(0, round(s))
-    return f"{s // 60}m{s % 60:02d}s" if s >= 60 else f"{s}s"
 
 
 def _load_spec(args: argparse.Namespace):
@@ -249,15 +210,18 @@ def main(argv: list[str] | None = None) -> int:
     try:
         return int(args.func(args) or 0)
     except UserError as exc:
+        end_open_lines()
         print(f"holdfast: error: {safe_text(str(exc))}", file=sys.stderr)  # data text: one literal line
         return 2
     except (Cancelled, KeyboardInterrupt):
+        end_open_lines()
         print(
             "holdfast: cancelled; finished refits are kept and the next run resumes from them",
             file=sys.stderr,
         )
         return 130
     except Exception as exc:
+        end_open_lines()
         if os.environ.get("HOLDFAST_DEBUG"):
             raise
         first = safe_text(str(exc).splitlines()[0]) if str(exc) else ""
