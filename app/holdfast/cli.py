@@ -10,56 +10,17 @@ from __future__ import annotations
 import argparse
 import os
 import sys
-import time
 from pathlib import Path
 
 from holdfast import __version__
 from holdfast.errors import Cancelled, UserError
+from holdfast.output.progress import ProgressBar, end_open_lines
 from holdfast.textsafe import safe_text
 
 CAUTION = (
     "Flags are statistical evidence, not proof of a wrong label. In regulated or safety-relevant data "
     "(medical, credit, safety), label changes follow the domain's own review and local rules."
 )
-
-
-class ProgressBar:
-    """A one-line progress bar with ETA on stderr (plain lines when stderr is not a terminal)."""
-
-    def __init__(self, label: str = "refits", stream=None) -> None:
-        self.label = label
-        self.stream = stream or sys.stderr
-        self.tty = self.stream.isatty()
-        self.last = 0.0
-        self.last_pct = -10
-
-    def __call__(self, done: int, total: int, eta: float | None) -> None:
-        now = time.monotonic()
-        finished = done >= total
-        if self.tty:
-            if not finished and now - self.last < 0.1:
-                return
-            self.last = now
-            width = 30
-            frac = done / total if total else 1.0
-            bar = "#" * int(frac * width) + "-" * (width - int(frac * width))
-            eta_s = f" ETA {_fmt_seconds(eta)}" if eta is not None and not finished else ""
-            self.stream.write(f"\r{self.label} [{bar}] {done}/{total}{eta_s}   ")
-            if finished:
-                self.stream.write("\n")
-            self.stream.flush()
-        else:
-            pct = int(100 * done / total) if total else 100
-            if pct >= self.last_pct + 10 or finished:
-                self.last_pct = pct
-                eta_s = f", ETA {_fmt_seconds(eta)}" if eta is not None and not finished else ""
-                self.stream.write(f"{self.label}: {done}/{total} ({pct}%{eta_s})\n")
-                self.stream.flush()
-
-
-def _fmt_seconds(s: float) -> str:
-    s = max(0, round(s))
-    return f"{s // 60}m{s % 60:02d}s" if s >= 60 else f"{s}s"
 
 
 def _load_spec(args: argparse.Namespace):
@@ -95,15 +56,22 @@ def cmd_scan(args: argparse.Namespace) -> int:
     if out.exists() and not out.is_dir():
         raise UserError(f"{out}: --out must be a folder")
     decisions = None
+    frame = None
     if getattr(args, "decisions", None):
-        from holdfast.review.decisions import read_decisions
+        from holdfast.data.load import read_table
+        from holdfast.review.decisions import check_relabels, read_decisions
 
         decisions = read_decisions(args.decisions)  # read first: a bad file fails before the scan
+        frame = read_table(Path(args.data))
+        if spec.data.label in frame.columns:  # else the scan names the missing column
+            label = spec.data.label
+            check_relabels(decisions, frame[label], label_column=label, source=str(args.decisions))
     scan = run_scan(
         args.data,
         spec,
         progress=None if args.quiet else ProgressBar(),
         use_cache=False if args.no_cache else None,
+        frame=frame,
     )
     rows_path, summary_path = scan.findings.write(out)
     print(f"{args.data}: {'from cache; ' if scan.from_cache else ''}wrote {rows_path} and {summary_path}")
@@ -114,7 +82,12 @@ def cmd_scan(args: argparse.Namespace) -> int:
     if decisions is not None:
         from holdfast.review.whatif import what_if, write_whatif
 
-        result = what_if(scan, decisions, progress=None if args.quiet else ProgressBar("what-if refits"))
+        result = what_if(
+            scan,
+            decisions,
+            progress=None if args.quiet else ProgressBar("what-if refits"),
+            use_cache=False if args.no_cache else None,
+        )
         json_path, changed_path = write_whatif(result, out)
         print(f"{args.decisions}: wrote {json_path} and {changed_path}")
         print("\n".join(safe_text(line) for line in result.text().splitlines()))  # ids are data text
@@ -237,15 +210,18 @@ def main(argv: list[str] | None = None) -> int:
     try:
         return int(args.func(args) or 0)
     except UserError as exc:
+        end_open_lines()
         print(f"holdfast: error: {safe_text(str(exc))}", file=sys.stderr)  # data text: one literal line
         return 2
     except (Cancelled, KeyboardInterrupt):
+        end_open_lines()
         print(
             "holdfast: cancelled; finished refits are kept and the next run resumes from them",
             file=sys.stderr,
         )
         return 130
     except Exception as exc:
+        end_open_lines()
         if os.environ.get("HOLDFAST_DEBUG"):
             raise
         first = safe_text(str(exc).splitlines()[0]) if str(exc) else ""

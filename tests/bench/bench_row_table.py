@@ -66,7 +66,7 @@ def findings_frame(n: int, seed: int = 0) -> pd.DataFrame:
             "flip_count": rng.integers(0, 6, n),
             "score": score,
             "rank": np.arange(1, n + 1),
-            "flags": np.where(rng.random(n) < 0.1, "loo_miss,bounded", "").astype(object),
+            "flag_names": np.where(rng.random(n) < 0.1, "loo_miss,bounded", "").astype(object),
             "held_out": rng.random(n) < 0.1,
             "decision": np.full(n, "", dtype=object),
         }

@@ -44,7 +44,7 @@ def findings_frame(n: int, seed: int = 0) -> pd.DataFrame:
             "flip_count": rng.integers(0, 4, n),
             "score": score,
             "rank": np.arange(1, n + 1),
-            "flags": flags,
+            "flag_names": flags,
             "held_out": np.zeros(n, dtype=bool),
             "decision": np.full(n, "", dtype=object),
         }

@@ -84,8 +84,8 @@ async def test_sort_filter_move_and_jump(ds: DataSet) -> None:
         rows = screen.scan.findings.rows
 
         await pilot.press("s")  # next column after score: flags, as text from A to Z
-        assert (table.sort_key, table.sort_descending) == ("flags", False)
-        expected = rows["flags"].astype(object).sort_values(kind="stable").index.tolist()
+        assert (table.sort_key, table.sort_descending) == ("flag_names", False)
+        expected = rows["flag_names"].astype(object).sort_values(kind="stable").index.tolist()
         assert table.view_positions().tolist() == expected
         await pilot.press("s")  # then flip count, largest first
         assert (table.sort_key, table.sort_descending) == ("flip_count", True)

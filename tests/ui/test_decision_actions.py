@@ -44,7 +44,7 @@ def rows_frame() -> pd.DataFrame:
             "support": [True, False, True, False, True],
             "loo_miss": [True, False, False, True, True],
             "held_out": [False, False, False, True, True],
-            "flags": ["loo_miss", "", None, "", "bounded"],
+            "flag_names": ["loo_miss", "", None, "", "bounded"],
         }
     )
 

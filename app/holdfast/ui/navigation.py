@@ -75,7 +75,7 @@ class RowFilters:
                 held = rows["held_out"].to_numpy(dtype=bool)
                 mask = rows["loo_miss"].to_numpy(dtype=bool) & (held if key == "held_out_miss" else ~held)
             elif key == "flagged":
-                mask = rows["flags"].fillna("").to_numpy(dtype=object) != ""
+                mask = rows["flag_names"].fillna("").to_numpy(dtype=object) != ""
             else:
                 mask = self.labels == value
             self._masks[key] = np.asarray(mask, dtype=bool)

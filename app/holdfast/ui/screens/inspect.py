@@ -49,7 +49,7 @@ TABLE_COLUMNS: tuple[ColumnSpec, ...] = (
     ColumnSpec("loo_prediction", "LOO pred", None, "left"),
     ColumnSpec("decision", "decision", 20, "left"),
     ColumnSpec("score", "score", 7, "right", lambda v: format_float(v, ".3f")),
-    ColumnSpec("flags", "flags", 38, "left", lambda v: format_text(v).replace(",", " ")),
+    ColumnSpec("flag_names", "flags", 38, "left", lambda v: format_text(v).replace(",", " ")),
     ColumnSpec("flip_count", "flips", 5, "right"),
     ColumnSpec("margin", "margin", 7, "right", lambda v: format_float(v, "+.2f")),
     ColumnSpec("alpha", "alpha", 6, "right", lambda v: format_float(v, ".3g")),

@@ -110,7 +110,7 @@ def default_columns(frame: pd.DataFrame) -> list[ColumnSpec]:
         ColumnSpec("loo_prediction", "LOO pred", None, "left"),
         ColumnSpec("decision", "decision", 12, "left"),
         ColumnSpec("score", "score", 7, "right", float_formatter(".3f")),
-        ColumnSpec("flags", "flags", 24, "left"),
+        ColumnSpec("flag_names", "flags", 24, "left"),
         ColumnSpec("loo_miss", "miss", 4, "center"),
         ColumnSpec("support", "supp", 4, "center"),
         ColumnSpec("essential", "ess", 4, "center"),

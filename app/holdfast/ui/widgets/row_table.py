@@ -165,7 +165,7 @@ class RowTable(ScrollView, can_focus=True):
         frame: pd.DataFrame | None = None,
         columns: Sequence[ColumnSpec | str] | None = None,
         *,
-        flag_column: str = "flags",
+        flag_column: str = "flag_names",
         decision_column: str = "decision",
         empty_text: str = "No rows to show.",
         name: str | None = None,
