@@ -28,13 +28,15 @@ from holdfast.data.spec import Spec
 from holdfast.ui import jobs
 from holdfast.ui.commands import key_entries
 from holdfast.ui.decisions import CAUTION, DecisionActions, Outcome
+from holdfast.ui.evidence import row_score_parts
 from holdfast.ui.messages import (
     error_line,
 )
-from holdfast.ui.navigation import RowFilters, next_sort
+from holdfast.ui.navigation import Query, RowFilters, next_sort
 from holdfast.ui.screens.dialogs import ChoiceDialog, ConfirmDialog, TextDialog
 from holdfast.ui.screens.inspect_keys import NEEDS_ROWS, InspectTable, screen_bindings
 from holdfast.ui.screens.inspect_work import BackgroundWork
+from holdfast.ui.screens.query import QueryDialog
 from holdfast.ui.session import DecisionBook, OpenedSession
 from holdfast.ui.textsafe import literal, safe_text
 from holdfast.ui.widgets.columns import ColumnSpec, format_float, format_text
@@ -86,7 +88,9 @@ class InspectScreen(BackgroundWork, Screen[None]):
         self.actions: DecisionActions | None = None
         self.filters: RowFilters | None = None
         self.rows: pd.DataFrame | None = None
-        self.filter_key = "all"
+        self.view_query: Query = Query(scope="all")
+        #: after a decision on one row, move on to the next undecided row by score (key a turns it on/off)
+        self.auto_advance = False
         self._busy: str | None = None  # "scan" or "what-if" while a worker runs
         self._scan_state = "idle"  # idle, running, done, failed, cancelled
         self._generation = 0  # number of the current scan; older scans' messages are ignored
@@ -154,6 +158,8 @@ class InspectScreen(BackgroundWork, Screen[None]):
         table = self.table
         table.set_data(frame, list(TABLE_COLUMNS))
         table.sort_by("score", descending=True)
+        self.view_query = self.filters.default
+        table.set_filter(self.filters.mask(self.view_query))
         table.move_cursor(0)
         self.query_one(OverviewPanel).show(scan.findings.summary)  # the margin histogram follows
         self._detail_context = None
@@ -197,22 +203,37 @@ class InspectScreen(BackgroundWork, Screen[None]):
         box.set_class(error, "-error")
         box.update(literal(text))
 
+    @property
+    def filter_key(self) -> str:
+        """The preset key of the filter in force (``custom`` for a combined one)."""
+        return self.filters.key_of(self.view_query) if self.filters is not None else "all"
+
     def _update_status(self) -> None:
-        if self.book is None or self.rows is None:
+        if self.book is None or self.filters is None:
             self.query_one("#status", Static).update("")
             return
-        table = self.table
-        view = len(table.view_positions()) if table.row_count else 0
-        total = table.row_count
-        parts = [f"row {table.cursor_index + 1:,} of {view:,}" if view else "no rows"]
-        if self.filter_key != "all":
-            parts.append(f"filter: {RowFilters.title(self.filter_key)} ({total:,} rows in all)")
+        table, filters = self.table, self.filters
+        view = table.view_positions() if table.row_count else np.zeros(0, dtype=np.intp)
+        parts = [f"row {table.cursor_index + 1:,} of {len(view):,}" if len(view) else "no rows"]
+        if self.auto_advance:
+            parts.append("auto-advance")
+        if self.view_query != filters.default:
+            parts.append(f"filter: {filters.title(self.view_query)}")
         if table.sort_key:
             title = next((s.title for s in TABLE_COLUMNS if s.key == table.sort_key), table.sort_key)
             parts.append(f"sort: {title} {'▼' if table.sort_descending else '▲'}")
+        queue = filters.review_positions(view)
+        if len(queue) != int(filters.review.sum()):
+            done = int(np.count_nonzero(self.book.kind[queue] != ""))
+            parts.append(f"this view: {done:,} of {len(queue):,} decided")
+        review = filters.review
         counts = self.book.counts()
         decided = ", ".join(f"{k} {v:,}" for k, v in counts.items() if v)
-        parts.append(f"decided {self.book.decided:,} of {total:,}" + (f" ({decided})" if decided else ""))
+        reviewed = int(np.count_nonzero(self.book.kind[review] != ""))
+        what = "review rows" if filters.has_held_out else ""
+        parts.append(f"decided {reviewed:,} of {int(review.sum()):,}{' ' + what if what else ''}")
+        if decided:
+            parts[-1] += f" ({decided})"
         self.query_one("#status", Static).update(literal(" · ".join(parts)))
 
     # ------------------------------------------------------------------ table events, detail panel
@@ -256,7 +277,10 @@ class InspectScreen(BackgroundWork, Screen[None]):
             self._set_message(f"Row detail failed: {error_line(exc)}", error=True)
             return
         text, note = self.book.text[position], self.book.note(position)
-        panel.show(detail, decision=(f"{text} {note}" if note else text) or None)
+        parts, pending = row_score_parts(self.rows, position)
+        panel.show(
+            detail, decision=(f"{text} {note}" if note else text) or None, parts=parts, provisional=pending
+        )
 
     # ------------------------------------------------------------------ actions: availability
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
@@ -317,7 +341,10 @@ class InspectScreen(BackgroundWork, Screen[None]):
         The cursor stays on its row, so that a note (n) or an undo (u) right after goes to the same row.
         """
         assert self.actions is not None
-        return self._show_outcome(self.actions.decide(positions, decision, new_label))
+        saved = self._show_outcome(self.actions.decide(positions, decision, new_label))
+        if saved and self.auto_advance and len(positions) == 1 and decision != "clear":
+            self.action_next()
+        return saved
 
     def _show_outcome(self, outcome: Outcome) -> bool:
         """Redraw the rows an action changed and say what happened; False when nothing was saved."""
@@ -362,24 +389,35 @@ class InspectScreen(BackgroundWork, Screen[None]):
     def action_bulk(self) -> None:
         assert self.actions is not None
         actions = self.actions
+        assert self.filters is not None
+        filters = self.filters
         positions = self.table.view_positions()
+        review = filters.review_positions(positions)
         if len(positions) == 0:
             self._set_message("No rows in this view.")
             return
-        view = RowFilters.title(self.filter_key)
-        title = f"One decision for all {len(positions):,} rows in this view ({view}):"
+        if len(review) == 0:
+            self._set_message("Every row in this view is held out: bulk decisions reach review rows only.")
+            return
+        held = (
+            f"; {len(positions) - len(review):,} held-out rows are left out"
+            if len(review) < len(positions)
+            else ""
+        )
+        what = filters.title(self.view_query)
+        title = f"One decision for all {len(review):,} review rows in this view ({what}{held}):"
 
         def chosen(key: str | None) -> None:
             if key is None:
                 return
-            plan = actions.bulk_plan(positions, key)
+            plan = actions.bulk_plan(positions, key, filters.review)
             if isinstance(plan, str):
                 self._set_message(plan)
                 return
 
             def confirmed(yes: bool | None) -> None:
                 if yes and self._decide(plan.targets, plan.decision, plan.new_label):
-                    self._apply_filter(self.filter_key)
+                    self._apply_query(self.view_query)
 
             self.app.push_screen(
                 ConfirmDialog(plan.question, yes="Apply", no="Cancel", id="bulk-confirm"), confirmed
@@ -389,23 +427,55 @@ class InspectScreen(BackgroundWork, Screen[None]):
 
     # ------------------------------------------------------------------ actions: view
     def _apply_filter(self, key: str) -> None:
+        """Show the rows of the preset ``key`` (see ``RowFilters.presets``)."""
         assert self.filters is not None
-        self.filter_key = key
-        self.table.set_filter(self.filters.mask(key))
+        self._apply_query(self.filters.presets()[key])
+
+    def _apply_query(self, query: Query) -> None:
+        assert self.filters is not None
+        self.view_query = query
+        self.table.set_filter(self.filters.mask(query))
         self._update_status()
         self._schedule_detail()
 
     def action_filter(self) -> None:
         assert self.filters is not None
+        filters = self.filters
+
+        def combined(query: Query | None) -> None:
+            if query is not None:
+                self._apply_query(query)
 
         def chosen(key: str | None) -> None:
-            if key is not None:
+            if key == "custom":
+                dialog = QueryDialog(
+                    self.view_query, filters.classes, filters.count, has_held_out=filters.has_held_out
+                )
+                self.app.push_screen(dialog, combined)
+            elif key is not None:
                 self._apply_filter(key)
 
-        dialog = ChoiceDialog(
-            "Show:", self.filters.choices(), highlighted=self.filter_key, id="filter-dialog"
-        )
+        dialog = ChoiceDialog("Show:", filters.choices(), highlighted=self.filter_key, id="filter-dialog")
         self.app.push_screen(dialog, chosen)
+
+    def action_next(self) -> None:
+        """Move to the next row without a decision, by score (highest first), in this view."""
+        assert self.filters is not None and self.book is not None
+        wanted = (self.book.kind == "") & self.filters.review
+        index = self.table.model.next_by("score", True, wanted)
+        if index is None:
+            self._set_message("No row without a decision is left in this view.")
+            return
+        self.table.move_cursor(index)
+
+    def action_auto_advance(self) -> None:
+        self.auto_advance = not self.auto_advance
+        self._set_message(
+            "Auto-advance on: after a decision the cursor goes to the next undecided row by score."
+            if self.auto_advance
+            else "Auto-advance off: the cursor stays on the row you decided on."
+        )
+        self._update_status()
 
     def action_sort(self) -> None:
         key, descending = next_sort([s.key for s in TABLE_COLUMNS], self.table.sort_key)
@@ -426,7 +496,7 @@ class InspectScreen(BackgroundWork, Screen[None]):
             if self.table.jump_to_id(row_id):
                 return
             if row_id in self.book.position:
-                self._apply_filter("all")
+                self._apply_query(Query(scope="all"))
                 self.table.jump_to_id(row_id)
                 self._set_message(f"Showing all rows: {row_id} was hidden by the filter.")
             else:
