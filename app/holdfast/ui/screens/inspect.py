@@ -26,17 +26,16 @@ from textual.widgets import Footer, ProgressBar, Static
 
 from holdfast.data.spec import Spec
 from holdfast.ui import jobs
-from holdfast.ui.commands import key_entries
 from holdfast.ui.decisions import CAUTION, DecisionActions, Outcome
 from holdfast.ui.evidence import row_score_parts
 from holdfast.ui.messages import (
     error_line,
 )
-from holdfast.ui.navigation import Query, RowFilters, next_sort
+from holdfast.ui.navigation import Query, RowFilters
 from holdfast.ui.screens.dialogs import ChoiceDialog, ConfirmDialog, TextDialog
 from holdfast.ui.screens.inspect_keys import NEEDS_ROWS, InspectTable, screen_bindings
+from holdfast.ui.screens.inspect_view import ViewActions
 from holdfast.ui.screens.inspect_work import BackgroundWork
-from holdfast.ui.screens.query import QueryDialog
 from holdfast.ui.session import DecisionBook, OpenedSession
 from holdfast.ui.textsafe import literal, safe_text
 from holdfast.ui.widgets.columns import ColumnSpec, format_float, format_text
@@ -73,7 +72,7 @@ class InspectContext:
     frame: pd.DataFrame | None = None
 
 
-class InspectScreen(BackgroundWork, Screen[None]):
+class InspectScreen(BackgroundWork, ViewActions, Screen[None]):
     """Browse the rows of a scan, decide on them, export. See the help screen (?) for the keys."""
 
     HORIZONTAL_BREAKPOINTS: ClassVar[list[tuple[int, str]] | None] = [(0, "-narrow"), (130, "-wide")]
@@ -255,12 +254,6 @@ class InspectScreen(BackgroundWork, Screen[None]):
     def _row_chosen(self, event: RowTable.RowChosen) -> None:
         self._toggle_maximized(self.query_one(RowDetailPanel))
 
-    def _toggle_maximized(self, widget: Any) -> None:
-        if self.maximized is widget:
-            self.minimize()
-        else:
-            self.maximize(widget, container=False)
-
     def _update_detail_now(self) -> None:
         self._detail_timer = None
         panel = self.query_one(RowDetailPanel)
@@ -424,125 +417,3 @@ class InspectScreen(BackgroundWork, Screen[None]):
             )
 
         self.app.push_screen(ChoiceDialog(title, actions.bulk_choices(), id="bulk-dialog"), chosen)
-
-    # ------------------------------------------------------------------ actions: view
-    def _apply_filter(self, key: str) -> None:
-        """Show the rows of the preset ``key`` (see ``RowFilters.presets``)."""
-        assert self.filters is not None
-        self._apply_query(self.filters.presets()[key])
-
-    def _apply_query(self, query: Query) -> None:
-        assert self.filters is not None
-        self.view_query = query
-        self.table.set_filter(self.filters.mask(query))
-        self._update_status()
-        self._schedule_detail()
-
-    def action_filter(self) -> None:
-        assert self.filters is not None
-        filters = self.filters
-
-        def combined(query: Query | None) -> None:
-            if query is not None:
-                self._apply_query(query)
-
-        def chosen(key: str | None) -> None:
-            if key == "custom":
-                dialog = QueryDialog(
-                    self.view_query, filters.classes, filters.count, has_held_out=filters.has_held_out
-                )
-                self.app.push_screen(dialog, combined)
-            elif key is not None:
-                self._apply_filter(key)
-
-        dialog = ChoiceDialog("Show:", filters.choices(), highlighted=self.filter_key, id="filter-dialog")
-        self.app.push_screen(dialog, chosen)
-
-    def action_next(self) -> None:
-        """Move to the next row without a decision, by score (highest first), in this view."""
-        assert self.filters is not None and self.book is not None
-        wanted = (self.book.kind == "") & self.filters.review
-        index = self.table.model.next_by("score", True, wanted)
-        if index is None:
-            self._set_message("No row without a decision is left in this view.")
-            return
-        self.table.move_cursor(index)
-
-    def action_auto_advance(self) -> None:
-        self.auto_advance = not self.auto_advance
-        self._set_message(
-            "Auto-advance on: after a decision the cursor goes to the next undecided row by score."
-            if self.auto_advance
-            else "Auto-advance off: the cursor stays on the row you decided on."
-        )
-        self._update_status()
-
-    def action_sort(self) -> None:
-        key, descending = next_sort([s.key for s in TABLE_COLUMNS], self.table.sort_key)
-        self.table.sort_by(key, descending=descending)
-
-    def action_reverse(self) -> None:
-        key = self.table.sort_key
-        if key is None:
-            self._set_message("Rows are in file order; press s to sort first.")
-            return
-        self.table.sort_by(key, descending=not self.table.sort_descending)
-
-    def action_goto(self) -> None:
-        def chosen(text: str | None) -> None:
-            if not text or self.book is None:
-                return
-            row_id = text.strip()
-            if self.table.jump_to_id(row_id):
-                return
-            if row_id in self.book.position:
-                self._apply_query(Query(scope="all"))
-                self.table.jump_to_id(row_id)
-                self._set_message(f"Showing all rows: {row_id} was hidden by the filter.")
-            else:
-                self._set_message(f"No row with id {row_id}.", error=True)
-
-        dialog = TextDialog("Go to the row with id:", hint="enter jumps · escape cancels", id="goto-dialog")
-        self.app.push_screen(dialog, chosen)
-
-    def action_toggle_detail(self) -> None:
-        panel = self.query_one(RowDetailPanel)
-        if self.maximized is panel:
-            self.minimize()
-        panel.display = not panel.display
-        if panel.display:
-            self._update_detail_now()
-        self.focus_table()
-
-    def action_overview(self) -> None:
-        self._toggle_maximized(self.query_one(OverviewPanel))
-
-    def watch_maximized(self, maximized: Any) -> None:
-        """The whole-screen overview shows each bound's full source; the compact one a short citation.
-
-        Back from a whole-screen view, the keys go to the table again (up/down move the highlighted row).
-        """
-        self.query_one(OverviewPanel).set_full(maximized is self.query_one(OverviewPanel))
-        if maximized is None:
-            self.focus_table()
-
-    def focus_table(self) -> None:
-        """Give the keys back to the row table, whose highlighted row every decision key acts on."""
-        if self.maximized is None and self.is_attached:
-            self.table.focus(scroll_visible=False)
-
-    def on_screen_resume(self) -> None:
-        """A dialog or another screen closed: the keys go back to the table."""
-        self.focus_table()
-
-    def action_restore(self) -> None:
-        """Leave the whole-screen detail or overview."""
-        self.minimize()
-
-    def action_help(self) -> None:
-        from holdfast.ui.screens.help import HelpScreen
-
-        entries = key_entries(self.app, self.command_nodes())
-        self.app.push_screen(
-            HelpScreen(entries, caution=CAUTION, session_path=str(self.context.session.path))
-        )
