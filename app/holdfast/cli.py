@@ -16,12 +16,12 @@ import argparse
 import os
 import sys
 import threading
-import time
 from collections.abc import Callable
 from pathlib import Path
 
 from holdfast import __version__
 from holdfast.errors import Cancelled, UserError
+from holdfast.output.progress import ProgressBar, end_open_lines
 from holdfast.textsafe import clip, safe_text
 
 CANCELLED = "holdfast: cancelled; finished refits are kept and the next run resumes from them"
@@ -34,45 +34,6 @@ CAUTION = (
     "Flags are statistical evidence, not proof of a wrong label. In regulated or safety-relevant data "
     "(medical, credit, safety), label changes follow the domain's own review and local rules."
 )
-
-
-class ProgressBar:
-    """A one-line progress bar with ETA on stderr (plain lines when stderr is not a terminal)."""
-
-    def __init__(self, label: str = "refits", stream=None) -> None:
-        self.label = label
-        self.stream = stream or sys.stderr
-        self.tty = self.stream.isatty()
-        self.last = 0.0
-        self.last_pct = -10
-
-    def __call__(self, done: int, total: int, eta: float | None) -> None:
-        now = time.monotonic()
-        finished = done >= total
-        if self.tty:
-            if not finished and now - self.last < 0.1:
-                return
-            self.last = now
-            width = 30
-            frac = done / total if total else 1.0
-            bar = "#" * int(frac * width) + "-" * (width - int(frac * width))
-            eta_s = f" ETA {_fmt_seconds(eta)}" if eta is not None and not finished else ""
-            self.stream.write(f"\r{self.label} [{bar}] {done}/{total}{eta_s}   ")
-            if finished:
-                self.stream.write("\n")
-            self.stream.flush()
-        else:
-            pct = int(100 * done / total) if total else 100
-            if pct >= self.last_pct + 10 or finished:
-                self.last_pct = pct
-                eta_s = f", ETA {_fmt_seconds(eta)}" if eta is not None and not finished else ""
-                self.stream.write(f"{self.label}: {done}/{total} ({pct}%{eta_s})\n")
-                self.stream.flush()
-
-
-def _fmt_seconds(s: float) -> str:
-    s = max(0, round(s))
-    return f"{s // 60}m{s % 60:02d}s" if s >= 60 else f"{s}s"
 
 
 def _load_spec(args: argparse.Namespace):
@@ -113,16 +74,23 @@ def cmd_scan(args: argparse.Namespace) -> int:
 
         _check_writable(cache_root(), "the scan cache", "; or run with --no-cache")
     decisions = None
+    frame = None
     if getattr(args, "decisions", None):
-        from holdfast.review.decisions import read_decisions
+        from holdfast.data.load import read_table
+        from holdfast.review.decisions import check_relabels, read_decisions
 
         decisions = read_decisions(args.decisions)  # read first: a bad file fails before the scan
+        frame = read_table(Path(args.data))
+        if spec.data.label in frame.columns:  # else the scan names the missing column
+            label = spec.data.label
+            check_relabels(decisions, frame[label], label_column=label, source=str(args.decisions))
     scan = run_scan(
         args.data,
         spec,
         progress=None if args.quiet else ProgressBar(),
         should_cancel=_CANCEL.is_set,
         use_cache=False if args.no_cache else None,
+        frame=frame,
     )
     for warning in scan.prepared.warnings:
         print(f"holdfast: warning: {safe_text(clip(warning, MAX_LINE))}", file=sys.stderr)
@@ -140,6 +108,7 @@ def cmd_scan(args: argparse.Namespace) -> int:
             decisions,
             progress=None if args.quiet else ProgressBar("what-if refits"),
             should_cancel=_CANCEL.is_set,
+            use_cache=False if args.no_cache else None,
         )
         json_path, changed_path = write_whatif(result, out)
         print(f"{args.decisions}: wrote {json_path} and {changed_path}")
@@ -289,6 +258,7 @@ def _in_worker(work: Callable[[], int]) -> int:
         worker.join(2.0)
         if worker.is_alive():  # inside the solver: leave now, nothing half-written stays visible
             sys.stdout.flush()
+            end_open_lines()
             print(CANCELLED, file=sys.stderr, flush=True)
             os._exit(130)
         raise
@@ -314,12 +284,15 @@ def main(argv: list[str] | None = None) -> int:
             return _in_worker(lambda: int(args.func(args) or 0))
         return int(args.func(args) or 0)
     except UserError as exc:
+        end_open_lines()
         print(f"holdfast: error: {_one_line(str(exc))}", file=sys.stderr)  # data text: one literal line
         return 2
     except (Cancelled, KeyboardInterrupt):
+        end_open_lines()
         print(CANCELLED, file=sys.stderr)
         return 130
     except Exception as exc:
+        end_open_lines()
         if os.environ.get("HOLDFAST_DEBUG"):
             raise
         first = _one_line(str(exc).splitlines()[0]) if str(exc) else ""

@@ -24,6 +24,8 @@ import pandas as pd
 from holdfast import __version__
 from holdfast.atomic import atomic_write_bytes
 from holdfast.errors import UserError
+from holdfast.insight.explain import percent
+from holdfast.output.terminal import same_support_and_loo_bound
 from holdfast.review.decisions import decisions_dict
 from holdfast.review.events import Decision
 from holdfast.review.journal import Journal
@@ -39,10 +41,13 @@ CAUTIONS: tuple[str, ...] = (
     "(medical, credit, safety), label changes follow the domain's own review and local rules.",
     "The LOO errors are exact refits of the support rows with the solver tolerance shown; a different "
     "tolerance may move the counts slightly.",
-    "The xi-alpha count is an upper bound on the LOO errors under its theorem; the span estimate is an "
-    "estimate and can miss LOO errors. Both formulas are implemented from memory of the papers "
-    "(see holdfast.insight.bounds).",
-    "A what-if refit shows what the model would be if the decisions were right; it does not check them.",
+    "The xi-alpha count is an upper bound on the LOO errors under its theorem (Joachims 2000, Estimating "
+    "the generalization performance of a SVM efficiently, ICML); the span estimate (Vapnik & Chapelle "
+    "2000, Bounds on error expectation for support vector machines, Neural Computation 12(9)) is an "
+    "estimate and can miss LOO errors.",
+    "A what-if refit shows what the model would be if the decisions were right; it does not check them. "
+    "Its LOO error is partly self-fulfilling (relabelled rows are judged against their new labels); the "
+    "held-out error is the honest check.",
 )
 
 # characters with an inline meaning in CommonMark or GitHub-flavoured Markdown (tables, strikethrough, math)
@@ -223,8 +228,22 @@ def _summary(scan: Scan) -> list[str]:
 
 def _bounds(scan: Scan) -> list[str]:
     b = scan.findings.summary.get("bounds", {})
+    same = same_support_and_loo_bound(b)
     rows = []
     for key, item in b.items():
+        if same and key == "loo_bound":
+            continue
+        if same and key == "support_fraction":
+            lb = b["loo_bound"]
+            rows.append(
+                [
+                    md_escape(f"{item.get('name', key)} = {lb.get('name', 'LOO bound')}"),
+                    _num(item.get("value")),
+                    md_escape("misses_outside=0: no LOO miss outside the support set, so (d + 0)/m = d/m"),
+                    md_escape(f"{item.get('source', '')}; {lb.get('source', '')}"),
+                ]
+            )
+            continue
         detail = []
         for k in ("count", "k", "n", "errors", "misses_outside", "count_bounded_as_errors"):
             if k in item:
@@ -278,7 +297,7 @@ def _explanation(scan: Scan) -> list[str]:
     f = e["flagged"]
     lines.append(
         f"Rows flagged with label evidence ({', '.join(md_escape(x) for x in f['flags'])}) account for "
-        f"{f['support_rows_flagged']} of the {d} support rows ({100 * f['share_of_d']:.0f}%)."
+        f"{f['support_rows_flagged']} of the {d} support rows ({percent(f['support_rows_flagged'], d)})."
     )
     t = e["twins"]
     lines.append(f"Twin conflicts: {t['rows']} rows ({t['support_rows']} of them support rows).")
@@ -318,7 +337,7 @@ def _top_rows(scan: Scan, decisions: dict[str, Decision], top: int) -> list[str]
                 _num(float(r.score), 3),
                 _num(float(r.margin), 3),
                 str(int(r.flip_count)),
-                md_escape(str(r.flags).replace(",", ", ")),
+                md_escape(str(r.flag_names).replace(",", ", ")),
                 md_escape(decision),
             ]
         )
@@ -373,6 +392,8 @@ def _whatif_section(w: WhatIf) -> list[str]:
         *_table(["", "before", "after"], [[md_escape(n), _num(b), _num(a)] for n, b, a in w.comparison]),
         "",
         f"Rows whose status changed (label, support, LOO miss, prediction, or excluded): {len(w.changed)}.",
+        "",
+        f"**Caution.** {md_escape(w.caution)}",
         "",
     ]
     lines.extend(f"- {md_escape(n)}" for n in w.notes)

@@ -9,6 +9,7 @@ changes the held-out data (its error and the test-set bound) but the row is neve
 
 from __future__ import annotations
 
+import hashlib
 import json
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
@@ -20,13 +21,23 @@ import pandas as pd
 
 from holdfast.atomic import atomic_write_bytes, atomic_write_parquet
 from holdfast.data.prepare import prepare, row_ids
+from holdfast.engine.cache import cache_dir
 from holdfast.engine.findings import Findings, to_jsonable
-from holdfast.review.decisions import apply_decisions, decisions_dict
+from holdfast.review.decisions import apply_decisions, check_relabels, decisions_dict
 from holdfast.review.events import Decision
 
 if TYPE_CHECKING:
     from holdfast.engine.loo import Progress
     from holdfast.engine.scan import Scan
+
+#: what the what-if screen and the report say beside the comparison (see :attr:`WhatIf.caution`)
+WHATIF_CAUTION = (
+    "The LOO error after the decisions is partly self-fulfilling: each relabelled row is now judged against "
+    "the label the decision gave it, by models trained on the other edited labels. The held-out error "
+    "(rows never trained on) is the honest check."
+)
+#: the what-if cache: after-findings of each set of decisions, in the scan's cache folder
+WHATIF_PREFIX = "whatif-"
 
 #: summary counts compared before/after: (summary key, label)
 COUNTS: tuple[tuple[str, str], ...] = (
@@ -85,6 +96,20 @@ class WhatIf:
     held_out_decisions: int = 0
     notes: list[str] = field(default_factory=list)
     findings: Findings | None = None
+    #: True when the after-findings came from the what-if cache (no refit)
+    from_cache: bool = False
+
+    @property
+    def caution(self) -> str:
+        """:data:`WHATIF_CAUTION`, with this comparison's LOO and held-out error counts."""
+        loo = f"LOO errors {_fmt(self.before.get('loo_errors'))} -> {_fmt(self.after.get('loo_errors'))}"
+        hb, ha = self.before.get("held_out"), self.after.get("held_out")
+        if hb and ha:
+            return f"{WHATIF_CAUTION} Here: {loo}; held-out errors {hb['errors']} -> {ha['errors']}."
+        return (
+            f"{WHATIF_CAUTION} Here: {loo}; this data set has no held-out rows (a split column in the spec, "
+            f"data.split, sets some aside) so nothing checks the decisions independently."
+        )
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready dict (``whatif.json``)."""
@@ -110,6 +135,7 @@ class WhatIf:
             lines.append(f"{name:<22}{_fmt(b):>12}{_fmt(a):>12}")
         lines.append(f"rows whose status changed: {len(self.changed)}")
         lines.extend(self.notes)
+        lines.append(self.caution)
         return "\n".join(lines)
 
 
@@ -203,12 +229,41 @@ def changed_rows(
     return frame[list(CHANGED_COLUMNS)]
 
 
+def decisions_fingerprint(table: Mapping[str, Decision], ids: set[str]) -> str:
+    """Hash of what the decisions change in the data: the relabels (with their new labels) and the
+    exclusions of ids present in the data. Confirm, defer, notes and times do not change the refit."""
+    effective = sorted(
+        (rid, d.decision, d.new_label if d.decision == "relabel" else "")
+        for rid, d in table.items()
+        if rid in ids and (d.decision == "exclude" or (d.decision == "relabel" and d.new_label is not None))
+    )
+    return hashlib.sha256(json.dumps(effective).encode()).hexdigest()[:16]
+
+
+def _cache_folder(scan: Scan, key: str, root: Path | None) -> Path | None:
+    data_fp = (scan.findings.summary.get("data") or {}).get("fingerprint")
+    if not data_fp:
+        return None
+    return cache_dir(str(data_fp), scan.spec.fingerprint(), root) / f"{WHATIF_PREFIX}{key}"
+
+
+def _read_after(folder: Path) -> Findings | None:
+    try:
+        rows = pd.read_parquet(folder / "rows.parquet")
+        summary = json.loads((folder / "summary.json").read_text())
+    except (OSError, ValueError):
+        return None
+    return Findings(rows=rows, summary=summary, classes=list(summary.get("classes", [])))
+
+
 def what_if(
     scan: Scan,
     decisions: Mapping[str, Decision] | pd.DataFrame,
     *,
     progress: Progress | None = None,
     should_cancel: Callable[[], bool] | None = None,
+    use_cache: bool | None = None,
+    cache_root: Path | None = None,
 ) -> WhatIf:
     """Apply relabels and exclusions to the scan's data, refit with the same spec, compare.
 
@@ -222,6 +277,15 @@ def what_if(
         change nothing; ids not in the data are listed in ``unmatched`` and otherwise ignored.
     progress, should_cancel
         As for :func:`holdfast.engine.scan.run_scan` (the refit runs exact LOO again).
+    use_cache, cache_root
+        The refit's findings are kept in the scan's cache folder under a fingerprint of the data, the spec
+        and what the decisions change (:func:`decisions_fingerprint`), so the same decisions never refit
+        twice (the inspector's what-if, then the report). Default: the spec's ``run.cache``.
+
+    Raises
+    ------
+    DataError
+        A relabel to a value that is not a class of the label column (names the row id and the classes).
 
     Returns
     -------
@@ -233,6 +297,7 @@ def what_if(
     table = _as_dict(decisions)
     p = scan.prepared
     frame = p.frame
+    check_relabels(table, frame[p.label_column], label_column=p.label_column, source="decisions")
     ids = row_ids(frame, p.id_column)
     present = set(ids)
     unmatched = [rid for rid in table if rid not in present]
@@ -261,15 +326,29 @@ def what_if(
             f"errors, test-set bound) but those rows are never trained on"
         )
     before = scan.findings.summary
+    cached = False
     if not excluded and not relabelled:
         notes.append("no relabel or exclusion changes the data: the model is unchanged")
         after_findings = scan.findings
     else:
-        source = f"{scan.data_path or '<data>'} (with decisions)"
-        prepared = prepare(cleaned.reset_index(drop=True), scan.spec, source=source)
-        prepared.ids = kept_ids
-        after_findings, _, _ = analyse(prepared, scan.spec, progress=progress, should_cancel=should_cancel)
-        after_findings.summary["data"]["path"] = source
+        cache = scan.spec.run.cache if use_cache is None else use_cache
+        folder = _cache_folder(scan, decisions_fingerprint(table, present), cache_root) if cache else None
+        found = _read_after(folder) if folder is not None and (folder / "summary.json").exists() else None
+        if found is not None and len(found.rows) == len(cleaned):
+            after_findings, cached = found, True
+            if progress is not None:
+                d = int(found.summary.get("d", 0))
+                progress(d, d, 0.0)
+        else:
+            source = f"{scan.data_path or '<data>'} (with decisions)"
+            prepared = prepare(cleaned.reset_index(drop=True), scan.spec, source=source)
+            prepared.ids = kept_ids
+            after_findings, _, _ = analyse(
+                prepared, scan.spec, progress=progress, should_cancel=should_cancel
+            )
+            after_findings.summary["data"]["path"] = source
+            if folder is not None:
+                after_findings.write(folder)
     after = after_findings.summary
     return WhatIf(
         before=before,
@@ -282,6 +361,7 @@ def what_if(
         held_out_decisions=held_decisions,
         notes=notes,
         findings=after_findings,
+        from_cache=cached,
     )
 
 
