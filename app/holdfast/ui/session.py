@@ -135,6 +135,7 @@ def open_session(data_path: str | Path, spec: Spec, session: str | Path | None =
         lock=lock,
     )
     if busy is not None:
+        journal.read_only_reason = f"open in another inspector, {busy.holder.describe()}"
         opened.read_only_note = (
             f"session {path} is open in another inspector ({busy.holder.describe()}): read-only here, "
             f"decisions cannot be recorded; close the other one to decide"
@@ -143,6 +144,8 @@ def open_session(data_path: str | Path, spec: Spec, session: str | Path | None =
         opened.read_only_note = (
             f"session {path} is read-only ({journal.read_only_reason}): decisions cannot be recorded"
         )
+    if opened.read_only_note:  # first of the notices the inspector shows; every decision key is refused
+        opened.warnings.append(opened.read_only_note)
     if existed:
         try:
             refuse_moved_positions(
