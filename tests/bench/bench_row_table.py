@@ -34,7 +34,8 @@ from textual.containers import Container
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT / "app"))
 
-from holdfast.ui.widgets.row_table import RowTable, default_columns  # noqa: E402
+from holdfast.ui.widgets.columns import default_columns  # noqa: E402
+from holdfast.ui.widgets.row_table import RowTable  # noqa: E402
 
 FIRST_PAINT_TARGET_MS = 1000.0
 KEY_TARGET_MS = 50.0

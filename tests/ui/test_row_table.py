@@ -19,7 +19,9 @@ from rich.color import Color
 from textual.app import App, ComposeResult
 
 from holdfast.ui.textsafe import literal, safe_text
-from holdfast.ui.widgets.row_table import ColumnSpec, RowTable, default_columns, sort_order
+from holdfast.ui.widgets.columns import ColumnSpec, default_columns
+from holdfast.ui.widgets.row_model import sort_order
+from holdfast.ui.widgets.row_table import RowTable
 
 from .conftest import findings_frame, screen_lines
 
