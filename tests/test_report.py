@@ -230,7 +230,7 @@ def test_plot_text_keeps_data_text_literal_in_images():
     # "_" (matplotlib documentation: "Writing mathematical expressions", Axes.legend)
     from matplotlib import cbook
 
-    from holdfast.output.report import plot_text
+    from holdfast.output.plots import plot_text
 
     assert cbook.is_math_text("$x^2$ grade")
     assert not cbook.is_math_text(plot_text("$x^2$ grade"))
