@@ -97,8 +97,15 @@ def test_relabelling_the_planted_flips_back_matches_a_direct_fit(scan, data):
         assert changed.loc[ids[i], "label_before"] != changed.loc[ids[i], "label_after"] == truth[i]
     names = {name: (b, a) for name, b, a in w.comparison}
     assert names["LOO errors"] == (loo_before, loo_ref)
-    for key, item in w.after["bounds"].items():
-        assert names[item["name"]][1] == item["value"], key
+    bounds = w.after["bounds"]
+    both = (
+        f"{bounds['support_fraction']['name']} = {bounds['loo_bound']['name']}"  # equal for an SVM: one row
+    )
+    assert names[both] == (w.before["bounds"]["loo_bound"]["value"], bounds["loo_bound"]["value"])
+    assert bounds["loo_bound"]["name"] not in names and bounds["support_fraction"]["name"] not in names
+    for key, item in bounds.items():
+        if key not in ("support_fraction", "loo_bound"):
+            assert names[item["name"]][1] == item["value"], key
     assert list(w.changed.columns) == list(CHANGED_COLUMNS)
 
 

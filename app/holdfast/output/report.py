@@ -162,7 +162,7 @@ def _bounds(scan: Scan) -> list[str]:
                     md_escape(f"{item.get('name', key)} = {lb.get('name', 'LOO bound')}"),
                     _num(item.get("value")),
                     md_escape("misses_outside=0: no LOO miss outside the support set, so (d + 0)/m = d/m"),
-                    md_escape(f"{item.get('source', '')}; {lb.get('source', '')}"),
+                    md_escape(lb.get("source", "")),
                 ]
             )
             continue

@@ -169,9 +169,18 @@ def compare(before: dict[str, Any], after: dict[str, Any]) -> list[tuple[str, An
             )
         )
     bb, ba = before.get("bounds", {}), after.get("bounds", {})
+    # d/m and the LOO bound are one number when no LOO miss lies outside the support set (always for an
+    # SVM): one row with both names, as in the terminal summary and the report
+    same = all(
+        b.get("loo_bound", {}).get("misses_outside") == 0 and "support_fraction" in b for b in (bb, ba)
+    )
     for key in BOUND_KEYS:
+        if same and key == "loo_bound":
+            continue
         if key in bb or key in ba:
             name = (bb.get(key) or ba.get(key))["name"]
+            if same and key == "support_fraction":
+                name = f"{name} = {(bb.get('loo_bound') or ba.get('loo_bound'))['name']}"
             rows.append((name, (bb.get(key) or {}).get("value"), (ba.get(key) or {}).get("value")))
     return rows
 
