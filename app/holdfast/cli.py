@@ -68,11 +68,6 @@ def cmd_scan(args: argparse.Namespace) -> int:
     out = Path(args.out)
     if out.exists() and not out.is_dir():
         raise UserError(f"{out}: --out must be a folder")
-    _check_writable(out, "--out")
-    if not args.no_cache and spec.run.cache:
-        from holdfast.engine.cache import cache_root
-
-        _check_writable(cache_root(), "the scan cache", "; or run with --no-cache")
     decisions = None
     frame = None
     if getattr(args, "decisions", None):
@@ -84,6 +79,11 @@ def cmd_scan(args: argparse.Namespace) -> int:
         if spec.data.label in frame.columns:  # else the scan names the missing column
             label = spec.data.label
             check_relabels(decisions, frame[label], label_column=label, source=str(args.decisions))
+    _check_writable(out, "--out")
+    if not args.no_cache and spec.run.cache:
+        from holdfast.engine.cache import cache_root
+
+        _check_writable(cache_root(), "the scan cache", "; or run with --no-cache")
     scan = run_scan(
         args.data,
         spec,
@@ -107,8 +107,8 @@ def cmd_scan(args: argparse.Namespace) -> int:
             scan,
             decisions,
             progress=None if args.quiet else ProgressBar("what-if refits"),
-            should_cancel=_CANCEL.is_set,
             use_cache=False if args.no_cache else None,
+            should_cancel=_CANCEL.is_set,
         )
         json_path, changed_path = write_whatif(result, out)
         print(f"{args.decisions}: wrote {json_path} and {changed_path}")

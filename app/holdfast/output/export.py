@@ -62,7 +62,7 @@ def _check_outputs(outputs: dict[str, Path | None], force: bool) -> None:
 
 def _report_images(path: Path) -> list[Path]:
     folder = path.with_name(f"{path.stem}_files")
-    return [folder / "margin.png", folder / "score.png"]
+    return [folder / "margin.png", folder / "score.png", folder / "whatif.png"]
 
 
 def _data_path(stored: str, session: Path) -> Path:
