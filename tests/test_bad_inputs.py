@@ -272,3 +272,23 @@ def test_real_full_or_read_only_out(kind: str, tmp_path: Path, capsys) -> None:
             subprocess.run(["umount", "-l", str(out)])
         else:
             out.chmod(0o755)
+
+
+def test_real_full_cache_disk(tmp_path: Path, capsys, monkeypatch: pytest.MonkeyPatch) -> None:
+    data = tmp_path / "lots.parquet"
+    _base().to_parquet(data, index=False)
+    cache = tmp_path / "cache-disk"
+    if not _mount_tmpfs(cache, "size=4k"):
+        pytest.skip("needs a tmpfs mount (root in a container)")
+    monkeypatch.setenv("HOLDFAST_CACHE_DIR", str(cache))
+    out = tmp_path / "res"
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("error")
+            code = main(["scan", str(data), "--label", "grade", "--id", "lot", "--out", str(out), "--quiet"])
+        err = capsys.readouterr().err.splitlines()
+        assert code == 2 and len(err) == 1, err
+        assert str(cache) in err[0] and "free disk space" in err[0] and "--no-cache" in err[0]
+        assert _written(out) == []
+    finally:
+        subprocess.run(["umount", "-l", str(cache)])
