@@ -68,7 +68,7 @@ def _journal(tmp_path: Path) -> Journal:
 
 
 def test_decisions_csv_is_guarded_and_parquet_is_raw(tmp_path: Path) -> None:
-    rows = pd.DataFrame({"id": list(HOSTILE)[:4], "label": ["premium"] * 4, "score": 1.0, "flags": ""})
+    rows = pd.DataFrame({"id": list(HOSTILE)[:4], "label": ["premium"] * 4, "score": 1.0, "flag_names": ""})
     with _journal(tmp_path) as journal:
         csv_path = export_decisions(journal, rows, tmp_path / "d.csv")
         pq_path = export_decisions(journal, rows, tmp_path / "d.parquet")
