@@ -126,6 +126,8 @@ def open_session(data_path: str | Path, spec: Spec, session: str | Path | None =
         except LockBusy as exc:
             journal.close()
             journal, busy = Journal.open(path, read_only=True), exc
+    if lock is not None:
+        journal.hold(lock.release)  # closing the journal ends the session: the lock goes with it
     opened = OpenedSession(
         journal=journal,
         path=path,
