@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import hashlib
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -20,6 +20,9 @@ from holdfast.learners.base import FittedModel, RefitOutcome, RefitProblem
 
 #: progress(done, total, eta_seconds or None)
 Progress = Callable[[int, int, float | None], None]
+#: on_update(refits done so far, keyed by training row): called before the first refit and after each
+#: batch of results, on the thread that runs the LOO; the mapping is live (read it, do not keep it)
+Update = Callable[[Mapping[int, RefitOutcome]], None]
 
 
 @dataclass
@@ -58,11 +61,14 @@ def exact_loo(
     progress: Progress | None = None,
     should_cancel: Callable[[], bool] | None = None,
     essential_tol: float = 1e-4,
+    priority: np.ndarray | None = None,
+    on_update: Update | None = None,
 ) -> LooResult:
     """Exact LOO predictions, flip counts and essential flags for all training rows.
 
-    Refits only ``model.loo_candidates()``; finished refits go to ``store`` as they arrive so an
-    interrupted run resumes. Raises :class:`holdfast.errors.Cancelled` when cancelled.
+    Refits only ``model.loo_candidates()``, highest ``priority`` (one value per training row) first when
+    given, else in row order; finished refits go to ``store`` as they arrive so an interrupted run
+    resumes, and to ``on_update``. Raises :class:`holdfast.errors.Cancelled` when cancelled.
     """
     m = model.y.shape[0]
     candidates = model.loo_candidates()
@@ -71,6 +77,9 @@ def exact_loo(
         done = {r: o for r, o in store.load().items() if r < m}
     resumed = len(done)
     todo = np.array([r for r in candidates if int(r) not in done], dtype=np.int64)
+    if priority is not None and len(todo):
+        key = np.nan_to_num(np.asarray(priority, dtype=np.float64)[todo], nan=-np.inf)
+        todo = todo[np.argsort(-key, kind="stable")]
     total = len(candidates)
     start = time.monotonic()
 
@@ -85,9 +94,13 @@ def exact_loo(
             left = total - len(done)
             eta = elapsed / new * left if new > 0 else None
             progress(len(done), total, eta)
+        if on_update is not None:
+            on_update(done)
 
     if progress is not None:
         progress(len(done), total, None)
+    if on_update is not None:
+        on_update(done)
     run_refits(
         problem,
         todo,
@@ -98,14 +111,34 @@ def exact_loo(
         should_cancel=should_cancel,
     )
 
+    loo, _ = assemble_loo(model, done, essential_tol=essential_tol)
+    loo.refits = total - resumed
+    loo.resumed = resumed
+    return loo
+
+
+def assemble_loo(
+    model: FittedModel, done: Mapping[int, RefitOutcome], *, essential_tol: float = 1e-4
+) -> tuple[LooResult, np.ndarray]:
+    """The LOO result from the refits in ``done``, and the mask of candidates still without a refit.
+
+    Rows outside ``model.loo_candidates()`` take their training values (exact). A pending candidate keeps
+    its training prediction and margin, flip count 0 and not essential: placeholders, to be masked by
+    the caller (the provisional findings show them as missing).
+    """
+    m = model.y.shape[0]
     loo_code = model.prediction.copy()
     flip_count = np.zeros(m, dtype=np.int64)
     essential = np.zeros(m, dtype=bool)
     max_change = np.full(m, np.nan)
     loo_margin = np.asarray(model.margin, dtype=np.float64).copy()
+    pending = np.zeros(m, dtype=bool)
     flipped: dict[int, np.ndarray] = {}
-    for r in candidates:
-        o = done[int(r)]
+    for r in model.loo_candidates():
+        o = done.get(int(r))
+        if o is None:
+            pending[r] = True
+            continue
         loo_code[r] = o.loo_code
         loo_margin[r] = o.loo_margin
         flip_count[r] = len(o.flipped)
@@ -113,13 +146,12 @@ def exact_loo(
         essential[r] = o.max_change > essential_tol or len(o.flipped) > 0 or o.loo_code != model.prediction[r]
         if len(o.flipped):
             flipped[int(r)] = o.flipped
-    return LooResult(
+    result = LooResult(
         loo_code=loo_code,
         flip_count=flip_count,
         essential=essential,
         max_change=max_change,
         flipped=flipped,
         loo_margin=loo_margin,
-        refits=total - resumed,
-        resumed=resumed,
     )
+    return result, pending

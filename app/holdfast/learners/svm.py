@@ -66,8 +66,23 @@ LINEAR_CACHE_ROWS = 128
 ESSENTIAL_TOL = 1e-4
 
 
+#: Accepted ranges of the SVM parameters (ours; common practice). Beyond them a fit on standard-scaled
+#: data takes minutes or never ends, and libsvm's solver cannot be interrupted while it runs: a C above
+#: 1e5 asks for a nearly hard margin on data that is not separable (the solver's iteration count grows
+#: with C), a numeric gamma below 1e-6 makes every kernel value nearly 1 (an ill-conditioned problem) and
+#: one above 1e4 makes every row its own island, and a polynomial degree above 10 overflows the kernel
+#: values of standard-scaled rows. Usual grid searches stay well inside (C 1e-3..1e3, gamma 1e-4..10).
+C_RANGE = (1e-6, 1e5)
+GAMMA_RANGE = (1e-6, 1e4)
+DEGREE_RANGE = (1, 10)
+
+
+def _in_range(value: float, limits: tuple[float, float]) -> bool:
+    return limits[0] <= value <= limits[1]
+
+
 def validate_svm_params(table: dict[str, Any], source: str) -> dict[str, Any]:
-    """Validate the ``[learner]`` table of the svm family and fill in defaults."""
+    """Validate the ``[learner]`` table of the svm family and fill in defaults (ranges: ``C_RANGE``...)."""
     out = {"family": "svm", **DEFAULTS, **{k: v for k, v in table.items() if k != "family"}}
     if out["kernel"] not in KERNELS:
         raise SpecError(
@@ -76,6 +91,11 @@ def validate_svm_params(table: dict[str, Any], source: str) -> dict[str, Any]:
     c = out["C"]
     if isinstance(c, bool) or not isinstance(c, int | float) or not c > 0 or not np.isfinite(c):
         raise SpecError(f"{source}: 'learner.C' must be a positive number, got {c!r}")
+    if not _in_range(c, C_RANGE):
+        raise SpecError(
+            f"{source}: 'learner.C' must be between {C_RANGE[0]:g} and {C_RANGE[1]:g}, got {c!r} "
+            f"(beyond, the fit takes minutes or never ends)"
+        )
     out["C"] = float(c)
     g = out["gamma"]
     if isinstance(g, str):
@@ -87,11 +107,21 @@ def validate_svm_params(table: dict[str, Any], source: str) -> dict[str, Any]:
         raise SpecError(
             f'{source}: \'learner.gamma\' must be "scale", "auto" or a positive number, got {g!r}'
         )
+    elif not _in_range(g, GAMMA_RANGE):
+        raise SpecError(
+            f"{source}: 'learner.gamma' must be between {GAMMA_RANGE[0]:g} and {GAMMA_RANGE[1]:g}, got "
+            f"{g!r} (beyond, the kernel is nearly constant or every row is its own island)"
+        )
     else:
         out["gamma"] = float(g)
     d = out["degree"]
     if isinstance(d, bool) or not isinstance(d, int) or d < 1:
         raise SpecError(f"{source}: 'learner.degree' must be a positive integer, got {d!r}")
+    if not _in_range(d, DEGREE_RANGE):
+        raise SpecError(
+            f"{source}: 'learner.degree' must be between {DEGREE_RANGE[0]} and {DEGREE_RANGE[1]}, got {d!r} "
+            f"(higher degrees overflow the kernel values)"
+        )
     c0 = out["coef0"]
     if isinstance(c0, bool) or not isinstance(c0, int | float) or not np.isfinite(c0):
         raise SpecError(f"{source}: 'learner.coef0' must be a number, got {c0!r}")
