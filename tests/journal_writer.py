@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import sys
 
-from holdfast.journal import Journal
+from holdfast.review.journal import Journal
 
 KINDS = ("relabel", "confirm", "exclude", "defer")
 LABELS = ("apple", "pear", "quince")

@@ -11,7 +11,7 @@ import pandas as pd
 import pytest
 
 from holdfast.cli import main
-from holdfast.findings import ROW_COLUMNS
+from holdfast.engine.findings import ROW_COLUMNS
 
 
 @pytest.fixture(autouse=True)

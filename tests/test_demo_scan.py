@@ -11,7 +11,7 @@ import pandas as pd
 import pytest
 
 from holdfast.data.spec import load_spec
-from holdfast.scan import run_scan
+from holdfast.engine.scan import run_scan
 
 SAMPLE = Path(__file__).resolve().parent.parent / "sample_data"
 

@@ -15,6 +15,7 @@ import pytest
 from sklearn.datasets import load_iris
 
 from holdfast.data.spec import spec_from_text
+from holdfast.engine.scan import Scan, run_scan
 from holdfast.insight.detail import (
     FEATURE_COLUMNS,
     FLIPPED_COLUMNS,
@@ -23,7 +24,6 @@ from holdfast.insight.detail import (
     row_detail,
 )
 from holdfast.insight.flags import FLAG_REASONS
-from holdfast.scan import Scan, run_scan
 
 NUMERIC = ["sepal_length", "sepal_width", "petal_length", "petal_width", "tray_const"]
 BENCHES = np.array(["north", "south", "east"], dtype=object)

@@ -28,8 +28,8 @@ from sklearn.preprocessing import StandardScaler
 from sklearn.svm import SVC
 
 from holdfast.data.spec import spec_from_text
+from holdfast.engine.scan import run_scan
 from holdfast.insight.explain import distance_stats
-from holdfast.scan import run_scan
 
 
 @pytest.fixture(autouse=True)

@@ -8,17 +8,16 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from holdfast.data.prepare import row_ids
 from holdfast.errors import DataError, UserError
-from holdfast.export import (
+from holdfast.output.tables import export_cleaned, export_decisions
+from holdfast.review.decisions import (
     DECISION_COLUMNS,
     apply_decisions,
     decisions_frame,
-    export_cleaned,
-    export_decisions,
     read_decisions,
-    row_ids,
 )
-from holdfast.journal import Journal
+from holdfast.review.journal import Journal
 
 
 @pytest.fixture
@@ -37,7 +36,7 @@ def data() -> pd.DataFrame:
 
 @pytest.fixture
 def rows(data: pd.DataFrame) -> pd.DataFrame:
-    """Findings-like per-row frame (holdfast.findings column contract, the columns export needs)."""
+    """Findings-like per-row frame (holdfast.engine.findings column contract, the columns export needs)."""
     return pd.DataFrame(
         {
             "row": np.arange(len(data)),

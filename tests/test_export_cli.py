@@ -20,8 +20,8 @@ from sklearn.datasets import load_breast_cancer
 from holdfast.cli import main
 from holdfast.data.load import fingerprint_file
 from holdfast.data.spec import spec_from_text
-from holdfast.journal import Journal
-from holdfast.scan import run_scan
+from holdfast.engine.scan import run_scan
+from holdfast.review.journal import Journal
 
 APP = Path(__file__).resolve().parents[1] / "app"
 SPEC = '[data]\nlabel = "grade"\nid = "sample"\n[learner]\nkernel = "rbf"\nC = 1.0\n'
@@ -218,7 +218,7 @@ def test_report_without_whatif_when_the_decisions_leave_one_class(session, capsy
 
 def test_warnings_show_ids_literally(capsys):
     """Warnings name ids from the data: a terminal escape in one is printed as visible characters."""
-    from holdfast.exporting import _stderr_warning
+    from holdfast.output.export import _stderr_warning
 
     _stderr_warning("1 decision names an id not in the data: \x1b[2Jgone\nnext")
     err = capsys.readouterr().err

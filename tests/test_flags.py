@@ -20,8 +20,8 @@ from sklearn.svm import SVC
 
 from holdfast.data.prepare import prepare
 from holdfast.data.spec import spec_from_text
+from holdfast.engine.scan import analyse
 from holdfast.insight.flags import DISSENT_SHARE, FLAG_REASONS, HEAVY_FLIP_MIN, compute_flags
-from holdfast.scan import analyse
 
 
 def _scan(frame: pd.DataFrame, learner: str = "", k: int = 5, split: bool = False, scale: str = "standard"):

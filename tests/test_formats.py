@@ -60,10 +60,10 @@ from sklearn.datasets import load_breast_cancer
 from holdfast.cli import main
 from holdfast.data.load import fingerprint_file
 from holdfast.data.spec import spec_from_text
-from holdfast.export import DECISION_COLUMNS
-from holdfast.findings import ROW_COLUMNS
-from holdfast.insight.whatif import CHANGED_COLUMNS
-from holdfast.journal import Journal
+from holdfast.engine.findings import ROW_COLUMNS
+from holdfast.review.decisions import DECISION_COLUMNS
+from holdfast.review.journal import Journal
+from holdfast.review.whatif import CHANGED_COLUMNS
 
 EXPECTED = Path(__file__).resolve().parent / "expected"
 UPDATE = os.environ.get("HOLDFAST_UPDATE_EXPECTED") == "1"
@@ -132,7 +132,7 @@ def made(tmp_path_factory) -> dict[str, Path]:
     }
     with pytest.MonkeyPatch.context() as mp:
         mp.setenv("HOLDFAST_CACHE_DIR", str(tmp / "cache"))
-        mp.setattr("holdfast.journal._now", _clock())
+        mp.setattr("holdfast.review.journal.utc_now", _clock())
         with Journal.create(
             db,
             fingerprint=fingerprint_file(data),

@@ -14,8 +14,9 @@ from hypothesis import strategies as st
 from hypothesis.stateful import RuleBasedStateMachine, initialize, invariant, precondition, rule
 
 from holdfast.errors import SessionError
-from holdfast.journal import DECISIONS, Journal
-from holdfast.sessions import default_session_path
+from holdfast.review.events import DECISIONS
+from holdfast.review.journal import Journal
+from holdfast.review.sessions import default_session_path
 
 SPEC = '[model]\nkind = "svm"\nC = 1.0\n# crates from the north shed: ä\n'
 

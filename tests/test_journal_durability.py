@@ -22,7 +22,7 @@ from pathlib import Path
 import pytest
 
 import holdfast
-from holdfast.journal import Journal
+from holdfast.review.journal import Journal
 
 WRITER = Path(__file__).with_name("journal_writer.py")
 _spec = importlib.util.spec_from_file_location("journal_writer", WRITER)

@@ -20,11 +20,11 @@ from matplotlib.image import imread
 from sklearn.datasets import load_breast_cancer
 
 from holdfast.data.spec import spec_from_text
+from holdfast.engine.scan import run_scan
 from holdfast.errors import UserError
-from holdfast.insight.whatif import what_if
-from holdfast.journal import Decision
-from holdfast.report import CAUTIONS, md_escape, write_report
-from holdfast.scan import run_scan
+from holdfast.output.report import CAUTIONS, md_escape, write_report
+from holdfast.review.events import Decision
+from holdfast.review.whatif import what_if
 
 ODD_IDS = [
     "a|b",
@@ -222,7 +222,7 @@ def test_plot_text_keeps_data_text_literal_in_images():
     # "_" (matplotlib documentation: "Writing mathematical expressions", Axes.legend)
     from matplotlib import cbook
 
-    from holdfast.report import plot_text
+    from holdfast.output.report import plot_text
 
     assert cbook.is_math_text("$x^2$ grade")
     assert not cbook.is_math_text(plot_text("$x^2$ grade"))

@@ -38,6 +38,7 @@ from sklearn.svm import SVC
 
 from holdfast.data.prepare import prepare
 from holdfast.data.spec import spec_from_text
+from holdfast.engine.scan import analyse
 from holdfast.insight.score import (
     LINEAR_CLIP,
     MARGIN_CLIP,
@@ -46,7 +47,6 @@ from holdfast.insight.score import (
     rank_rows,
     suspicion_score,
 )
-from holdfast.scan import analyse
 
 SEEDS = (0, 1, 2)
 FLIP_SHARE = 0.05

@@ -1,4 +1,5 @@
-"""The scan's terminal summary (holdfast.textout): the rows listed and their order come from the per-row
+"""The scan's terminal summary (holdfast.output.terminal): the rows listed and their order come from the
+per-row
 frame's rank, checked against pandas; data text is shown literally."""
 
 from __future__ import annotations
@@ -6,7 +7,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from holdfast.textout import CELL_MAX, explanation_lines, top_rows_text
+from holdfast.output.terminal import CELL_MAX, explanation_lines, top_rows_text
 
 
 def _rows(n: int = 30, seed: int = 0) -> pd.DataFrame:

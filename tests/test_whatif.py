@@ -20,9 +20,9 @@ from sklearn.svm import SVC
 
 from holdfast.cli import main
 from holdfast.data.spec import spec_from_text
-from holdfast.insight.whatif import CHANGED_COLUMNS, what_if
-from holdfast.journal import Decision
-from holdfast.scan import run_scan
+from holdfast.engine.scan import run_scan
+from holdfast.review.events import Decision
+from holdfast.review.whatif import CHANGED_COLUMNS, what_if
 
 GAMMA = 0.05
 SPEC = f'[data]\nlabel = "diagnosis"\nid = "case"\n[learner]\nkernel = "rbf"\nC = 1.0\ngamma = {GAMMA}\n'

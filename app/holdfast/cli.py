@@ -85,8 +85,8 @@ def _load_spec(args: argparse.Namespace):
 
 
 def cmd_scan(args: argparse.Namespace) -> int:
-    from holdfast.scan import run_scan
-    from holdfast.textout import summary_text, top_rows_text
+    from holdfast.engine.scan import run_scan
+    from holdfast.output.terminal import summary_text, top_rows_text
 
     if args.top < 0:
         raise UserError(f"--top must be 0 or more, got {args.top}")
@@ -96,7 +96,7 @@ def cmd_scan(args: argparse.Namespace) -> int:
         raise UserError(f"{out}: --out must be a folder")
     decisions = None
     if getattr(args, "decisions", None):
-        from holdfast.export import read_decisions
+        from holdfast.review.decisions import read_decisions
 
         decisions = read_decisions(args.decisions)  # read first: a bad file fails before the scan
     scan = run_scan(
@@ -112,7 +112,7 @@ def cmd_scan(args: argparse.Namespace) -> int:
         print(top_rows_text(scan.findings.rows, args.top))
     print()
     if decisions is not None:
-        from holdfast.insight.whatif import what_if, write_whatif
+        from holdfast.review.whatif import what_if, write_whatif
 
         result = what_if(scan, decisions, progress=None if args.quiet else ProgressBar("what-if refits"))
         json_path, changed_path = write_whatif(result, out)
@@ -123,7 +123,7 @@ def cmd_scan(args: argparse.Namespace) -> int:
 
 
 def cmd_demo(args: argparse.Namespace) -> int:
-    from holdfast.demo import write_demo
+    from holdfast.data.demo import write_demo
 
     folder = Path(args.dir)
     data_path, spec_path = write_demo(folder)
@@ -154,7 +154,7 @@ def cmd_open(args: argparse.Namespace) -> int:
 
 
 def cmd_export(args: argparse.Namespace) -> int:
-    from holdfast.exporting import export_session
+    from holdfast.output.export import export_session
 
     written = export_session(
         Path(args.session),

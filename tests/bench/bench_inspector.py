@@ -48,9 +48,9 @@ sys.path.insert(0, str(ROOT / "app"))
 
 from holdfast.data.prepare import Prepared  # noqa: E402
 from holdfast.data.spec import spec_from_text  # noqa: E402
-from holdfast.findings import Findings  # noqa: E402
+from holdfast.engine.findings import Findings  # noqa: E402
+from holdfast.engine.scan import Scan  # noqa: E402
 from holdfast.insight.flags import FLAG_REASONS  # noqa: E402
-from holdfast.scan import Scan  # noqa: E402
 from holdfast.ui.app import HoldfastApp  # noqa: E402
 from holdfast.ui.session import open_session  # noqa: E402
 

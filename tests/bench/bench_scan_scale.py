@@ -1,7 +1,8 @@
 """Benchmark: what a whole scan costs as the data grows, and where the time goes.
 
-Data: the fruit-packhouse demo (``holdfast.demo_data.write_packhouse``) at several sizes, scanned with its
-own spec (RBF, C=10, jobs=-1) through :func:`holdfast.scan.run_scan` with the cache off. Each size runs in
+Data: the fruit-packhouse demo (``holdfast.data.demo.write_packhouse``) at several sizes, scanned with its
+own spec (RBF, C=10, jobs=-1) through :func:`holdfast.engine.scan.run_scan` with the cache off. Each size
+runs in
 a fresh Python process (so the peak RSS is that size's own); the first size is the baseline of the ratios.
 
 Phases are timed from the outside by wrapping the functions the scan calls (no app code changes):
@@ -89,13 +90,13 @@ def measure(
 
     ``precompute_max_rows`` (what-if) overrides ``SVMLearner.precompute_max_rows`` of the scan's learner.
     """
+    import holdfast.engine.build as build_mod
     import holdfast.engine.loo as loo_mod
-    import holdfast.insight.build as build_mod
+    import holdfast.engine.scan as scan_mod
     import holdfast.insight.explain as explain_mod
     import holdfast.learners.svm as svm_mod
-    import holdfast.scan as scan_mod
+    from holdfast.data.demo import write_packhouse
     from holdfast.data.spec import load_spec
-    from holdfast.demo_data import write_packhouse
 
     paths = write_packhouse(work, n_rows=n_rows, seed=seed)
     spec = load_spec(paths["spec"])
@@ -305,7 +306,7 @@ def main() -> None:
     parser.add_argument("--one", type=int, default=None, help=argparse.SUPPRESS)
     args = parser.parse_args()
     if args.seed is None:
-        from holdfast.demo_data import SEED
+        from holdfast.data.demo import SEED
 
         args.seed = SEED
     if args.one is not None:

@@ -43,7 +43,7 @@ def demo_recall() -> tuple[int, float, float]:
     import os
 
     from holdfast.data.spec import load_spec
-    from holdfast.scan import run_scan
+    from holdfast.engine.scan import run_scan
 
     data = ROOT / "sample_data"
     os.environ.setdefault("HOLDFAST_CACHE_DIR", tempfile.mkdtemp(prefix="holdfast-bench-"))

@@ -11,7 +11,7 @@ from textual.app import App
 
 
 def findings_frame(n: int, seed: int = 0) -> pd.DataFrame:
-    """A frame with the findings columns (``holdfast.findings.ROW_COLUMNS``) plus ``decision``.
+    """A frame with the findings columns (``holdfast.engine.findings.ROW_COLUMNS``) plus ``decision``.
 
     The values are random but shaped like a packhouse grading scan: labels are fruit grades, ids are
     crate ids, ``score`` has ties and NaN so that sort rules are exercised.

@@ -2,7 +2,8 @@
 export, reopening, literal data text and a failing scan.
 
 Expected values come from outside the UI: row orders from pandas ``sort_values``, the journal read back
-through ``holdfast.journal.Journal``, exported files read with pandas, the cleaned data set rebuilt from
+through ``holdfast.review.journal.Journal``, exported files read with pandas, the cleaned data set rebuilt
+from
 the original frame with pandas operations.
 """
 
@@ -19,9 +20,9 @@ import pytest
 from rich.console import Console
 from textual.widgets import Input, RadioButton, Static
 
-import holdfast.scan
-from holdfast.export import read_decisions
-from holdfast.journal import Journal
+import holdfast.engine.scan
+from holdfast.review.decisions import read_decisions
+from holdfast.review.journal import Journal
 from holdfast.ui.screens.dialogs import ConfirmDialog, TextDialog
 from holdfast.ui.screens.export import ExportDialog
 from holdfast.ui.screens.help import HelpScreen
@@ -409,7 +410,7 @@ async def test_export_decisions_and_cleaned_data_from_the_ui(ds: DataSet, tmp_pa
 async def test_report_export_is_disabled_with_a_reason_when_missing(ds: DataSet, monkeypatch) -> None:  # type: ignore[no-untyped-def]
     import holdfast.ui.screens.inspect as inspect_module
 
-    monkeypatch.setattr(inspect_module, "_module_exists", lambda name: name != "holdfast.report")
+    monkeypatch.setattr(inspect_module, "_module_exists", lambda name: name != "holdfast.output.report")
     app = make_app(ds)
     async with app.run_test(size=SIZE) as pilot:
         await scanned(pilot)
@@ -547,7 +548,7 @@ async def test_cancel_keeps_finished_refits_and_resume_finishes(
 ) -> None:
     monkeypatch.setenv("HOLDFAST_CACHE_DIR", str(tmp_path / "fresh-cache"))
     gate = threading.Event()
-    real = holdfast.scan.run_scan
+    real = holdfast.engine.scan.run_scan
     calls = []
 
     def gated(path, spec, *, progress=None, should_cancel=None, **kw):  # type: ignore[no-untyped-def]
@@ -561,7 +562,7 @@ async def test_cancel_keeps_finished_refits_and_resume_finishes(
         finally:
             calls.append(1)
 
-    monkeypatch.setattr(holdfast.scan, "run_scan", gated)
+    monkeypatch.setattr(holdfast.engine.scan, "run_scan", gated)
     app = make_app(ds)
     async with app.run_test(size=SIZE) as pilot:
         screen = inspect(app)
@@ -583,7 +584,7 @@ async def test_cancel_keeps_finished_refits_and_resume_finishes(
 
 
 async def test_what_if_shows_the_refit_with_the_decisions_applied(ds: DataSet) -> None:
-    from holdfast.insight.whatif import what_if
+    from holdfast.review.whatif import what_if
     from holdfast.ui.screens.whatif import WhatIfScreen
 
     app = make_app(ds)

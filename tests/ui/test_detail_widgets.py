@@ -18,9 +18,9 @@ from textual.app import App, ComposeResult
 from textual.containers import Horizontal
 
 from holdfast.data.spec import spec_from_text
+from holdfast.engine.scan import Scan, run_scan
 from holdfast.insight.detail import DetailContext, RowDetail
 from holdfast.insight.histograms import Histogram, histogram
-from holdfast.scan import Scan, run_scan
 from holdfast.ui.widgets.histogram import BLOCKS, HistogramBars, HistogramView
 from holdfast.ui.widgets.overview import OverviewPanel
 from holdfast.ui.widgets.row_detail import UNUSUAL_MARK, RowDetailPanel

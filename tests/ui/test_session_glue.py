@@ -17,7 +17,8 @@ from hypothesis import strategies as st
 
 from holdfast.data.spec import spec_from_text
 from holdfast.errors import DataError, SessionError, UserError
-from holdfast.journal import Decision, Journal
+from holdfast.review.events import Decision
+from holdfast.review.journal import Journal
 from holdfast.ui.messages import Throttle, error_line
 from holdfast.ui.session import DecisionBook, decision_text, open_session
 

@@ -17,7 +17,7 @@ import pandas as pd
 from holdfast.insight.flags import FLAG_REASONS
 
 if TYPE_CHECKING:
-    from holdfast.scan import Scan
+    from holdfast.insight.view import ScanView
 
 _FLOAT_COLUMNS = ("class_mean", "class_std", "z", "share")
 FEATURE_COLUMNS = ("feature", "kind", "value", "class_mean", "class_std", "z", "share", "note")
@@ -91,7 +91,7 @@ def _column(rows: pd.DataFrame, name: str, default: Any, dtype: Any) -> np.ndarr
 class DetailContext:
     """Per-scan precomputation for :meth:`row_detail`. Build with :meth:`from_scan`; read-only after."""
 
-    scan: Scan
+    scan: ScanView
     train_index: np.ndarray
     train_slot: np.ndarray
     labels: np.ndarray
@@ -110,7 +110,7 @@ class DetailContext:
     max_sq_norm: float
 
     @classmethod
-    def from_scan(cls, scan: Scan) -> DetailContext:
+    def from_scan(cls, scan: ScanView) -> DetailContext:
         """Precompute the class statistics and the training matrix for the neighbour search."""
         p = scan.prepared
         rows = scan.findings.rows
@@ -376,7 +376,7 @@ class DetailContext:
 
 
 def row_detail(
-    scan: Scan, position: int, k: int | None = None, *, context: DetailContext | None = None
+    scan: ScanView, position: int, k: int | None = None, *, context: DetailContext | None = None
 ) -> RowDetail:
     """Explain input row ``position`` of ``scan``.
 

@@ -27,7 +27,7 @@ import numpy as np
 import pandas as pd
 
 if TYPE_CHECKING:
-    from holdfast.scan import Scan
+    from holdfast.insight.view import ScanView
 
 #: d/m above which the support set counts as "large" for the kernel-width hints (rule of thumb).
 LARGE_FRACTION = 0.5
@@ -106,7 +106,8 @@ def explain(rows: pd.DataFrame, X_train: np.ndarray, params: Mapping[str, Any]) 
     Parameters
     ----------
     rows : DataFrame
-        The per-row frame (``holdfast.findings``): support, bounded, prediction, label, held_out, flag_*
+        The per-row frame (``holdfast.engine.findings``): support, bounded, prediction, label, held_out,
+        flag_*
         columns, twin_conflicts.
     X_train : array of shape (m, p)
         The prepared matrix of the training rows (for the distance statistics of the hints).
@@ -186,7 +187,7 @@ def explain(rows: pd.DataFrame, X_train: np.ndarray, params: Mapping[str, Any]) 
     }
 
 
-def explain_scan(scan: Scan) -> dict[str, Any]:
+def explain_scan(scan: ScanView) -> dict[str, Any]:
     """:func:`explain` of a finished scan (also one read from the cache)."""
     p = scan.prepared
     return explain(scan.findings.rows, p.X[p.train_index], scan.findings.summary.get("learner", {}))

@@ -26,7 +26,8 @@ class HoldfastApp(App[int]):
     session
         The open session (see :func:`holdfast.ui.session.open_session`); the app does not close it.
     scan
-        A finished ``holdfast.scan.Scan`` to show at once instead of running the scan (tests, benchmarks).
+        A finished ``holdfast.engine.scan.Scan`` to show at once instead of running the scan (tests,
+        benchmarks).
     """
 
     CSS_PATH = "holdfast.tcss"

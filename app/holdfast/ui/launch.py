@@ -12,7 +12,7 @@ from holdfast.ui.session import open_session
 def launch(data_path: Path, spec: Spec, session: Path | None = None) -> int:
     """Open (or create) the session journal for ``data_path`` + ``spec`` and run the inspector.
 
-    The journal defaults to ``DATA.holdfast.db`` beside the data (:func:`holdfast.sessions.
+    The journal defaults to ``DATA.holdfast.db`` beside the data (:func:`holdfast.review.sessions.
     default_session_path`); when it has to go elsewhere, where it went is printed on stderr before the UI
     starts. Warnings about a journal made for other data or another spec are shown inside the UI.
     Returns the exit code (0). Raises UserError subclasses for a missing data file or a bad session file.

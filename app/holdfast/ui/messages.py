@@ -30,7 +30,7 @@ class ScanProgress(Message):
 
 @dataclass
 class ScanFinished(Message):
-    """The scan finished (or came from the cache); ``scan`` is a ``holdfast.scan.Scan``."""
+    """The scan finished (or came from the cache); ``scan`` is a ``holdfast.engine.scan.Scan``."""
 
     scan: Any
     generation: int = 0
@@ -73,7 +73,7 @@ class WhatIfProgress(Message):
 
 @dataclass
 class WhatIfFinished(Message):
-    """The what-if refit finished; ``result`` is a ``holdfast.insight.whatif.WhatIf``."""
+    """The what-if refit finished; ``result`` is a ``holdfast.review.whatif.WhatIf``."""
 
     result: Any
 

@@ -18,8 +18,9 @@ import numpy as np
 from holdfast.data.load import fingerprint_file
 from holdfast.data.spec import Spec, spec_from_text
 from holdfast.errors import DataError, SpecError
-from holdfast.journal import Decision, Event, Journal
-from holdfast.sessions import default_session_path
+from holdfast.review.events import Decision, Event
+from holdfast.review.journal import Journal
+from holdfast.review.sessions import default_session_path
 
 #: Marker appended to the decision text of a row that carries a note.
 NOTE_MARK = " ✎"
@@ -58,7 +59,8 @@ class OpenedSession:
 def open_session(data_path: str | Path, spec: Spec, session: str | Path | None = None) -> OpenedSession:
     """Open (or create) the session journal for ``data_path`` scanned with ``spec``.
 
-    ``session=None`` uses :func:`holdfast.sessions.default_session_path` (beside the data, or the user's
+    ``session=None`` uses :func:`holdfast.review.sessions.default_session_path` (beside the data, or the
+    user's
     data folder when that one is read-only). An existing journal is checked against the data fingerprint
     and the spec fingerprint; a difference is a warning, never an error, and no decision is touched.
 

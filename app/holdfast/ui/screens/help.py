@@ -14,7 +14,7 @@ from textual.containers import VerticalScroll
 from textual.screen import ModalScreen
 from textual.widgets import Static
 
-from holdfast.findings import ROW_COLUMNS
+from holdfast.engine.findings import ROW_COLUMNS
 from holdfast.insight.flags import FLAG_REASONS
 from holdfast.ui.commands import SECTION_ORDER, KeyEntry
 from holdfast.ui.textsafe import safe_text

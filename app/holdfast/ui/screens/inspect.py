@@ -273,7 +273,7 @@ class InspectScreen(Screen[None]):
             "e",
             "export",
             "Export",
-            id="holdfast.export",
+            id="holdfast.review.decisions",
             tooltip="Write the decisions, the cleaned data set or a report",
         ),
         Binding(
@@ -374,7 +374,7 @@ class InspectScreen(Screen[None]):
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="scan", name="scan", description="scan")
     def _scan_worker(self, generation: int) -> None:
-        from holdfast.scan import run_scan
+        from holdfast.engine.scan import run_scan
 
         worker = get_current_worker()
         throttle = Throttle()
@@ -917,7 +917,7 @@ class InspectScreen(Screen[None]):
 
     # ------------------------------------------------------------------ export
     def _report_reason(self) -> str | None:
-        if not _module_exists("holdfast.report"):
+        if not _module_exists("holdfast.output.report"):
             return "not available in this version yet"
         return None
 
@@ -960,7 +960,7 @@ class InspectScreen(Screen[None]):
         self.post_message(ExportFinished([request.path], text))
 
     def _export(self, request: ExportRequest, force: bool) -> str:
-        from holdfast import export
+        from holdfast.output import tables as export
 
         journal = self.context.session.journal
         scan = self.scan
@@ -983,7 +983,7 @@ class InspectScreen(Screen[None]):
                 f"Wrote {result.rows:,} rows to {path} ({result.relabelled:,} relabelled, "
                 f"{result.excluded:,} excluded)"
             )
-        from holdfast.report import write_report  # type: ignore[import-not-found]
+        from holdfast.output.report import write_report  # type: ignore[import-not-found]
 
         written = write_report(scan, journal, path, force=force)
         return f"Wrote the report to {written}"
@@ -998,7 +998,7 @@ class InspectScreen(Screen[None]):
 
     # ------------------------------------------------------------------ what-if
     def action_what_if(self) -> None:
-        if not _module_exists("holdfast.insight.whatif"):
+        if not _module_exists("holdfast.review.whatif"):
             self._set_message("What-if is not available in this version yet.")
             return
         if self._busy is not None:
@@ -1018,7 +1018,7 @@ class InspectScreen(Screen[None]):
         description="what-if",
     )
     def _what_if_worker(self) -> None:
-        from holdfast.insight.whatif import what_if  # type: ignore[import-not-found]
+        from holdfast.review.whatif import what_if  # type: ignore[import-not-found]
 
         worker = get_current_worker()
         throttle = Throttle()

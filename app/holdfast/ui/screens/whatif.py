@@ -1,6 +1,6 @@
 """The what-if screen: the bounds and LOO errors before and after the decisions, and the rows that change.
 
-It shows a ``holdfast.insight.whatif.WhatIf`` result: ``comparison`` rows ``(name, before, after)``,
+It shows a ``holdfast.review.whatif.WhatIf`` result: ``comparison`` rows ``(name, before, after)``,
 ``changed`` (id, row, label_before, label_after, status_before, status_after), and the counts of
 excluded and relabelled rows.
 """

@@ -1,16 +1,6 @@
 """The decisions journal: one SQLite file per session, append-only events, undo as new events.
 
-Layout
-------
-``meta`` (key TEXT PRIMARY KEY, value TEXT): ``format``, ``schema_version``, ``holdfast_version``,
-``created``, ``fingerprint``, ``data_path``, ``spec`` (TOML text), ``label_column``, ``id_column``
-(empty text when rows are identified by position).
-
-``events`` (seq, row_id, decision, new_label, note, time, action, kind): one row per change of one row's
-state. Each event carries the row's *whole* state after it (decision, new label, note), so the current state
-of a row is simply its last event; ``"clear"`` means "no decision". ``action`` groups the events of one user
-action (a bulk decision is one action); ``kind`` is ``"do"`` for a user action, ``"undo"`` or ``"redo"`` for
-the events written by :meth:`Journal.undo` and :meth:`Journal.redo`. Nothing is ever updated or deleted.
+The stored events and the table layout are in :mod:`holdfast.review.events`.
 
 Undo and redo
 -------------
@@ -41,94 +31,22 @@ import sqlite3
 import threading
 from collections.abc import Iterable, Iterator, Sequence
 from contextlib import contextmanager
-from dataclasses import dataclass
-from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any
 
 from holdfast import __version__
 from holdfast.errors import SessionError
-
-#: Decisions a user can make (DESIGN.md vocabulary) plus ``"clear"``: no decision.
-DECISIONS: tuple[str, ...] = ("relabel", "confirm", "exclude", "defer", "clear")
-#: Kinds of action that wrote an event.
-KINDS: tuple[str, ...] = ("do", "undo", "redo")
-#: Version of the table layout written by this module.
-SCHEMA_VERSION = 1
-#: Value of ``meta.format`` and of ``PRAGMA application_id`` that mark a holdfast journal.
-FORMAT = "holdfast-journal"
-APPLICATION_ID = 0x486F6C64  # "Hold"
-
-_META_KEYS = ("fingerprint", "data_path", "spec", "label_column", "id_column")
-
-_SCHEMA = f"""
-CREATE TABLE meta (
-    key TEXT PRIMARY KEY,
-    value TEXT NOT NULL
-);
-CREATE TABLE events (
-    seq INTEGER PRIMARY KEY AUTOINCREMENT,
-    row_id TEXT NOT NULL,
-    decision TEXT NOT NULL CHECK (decision IN ({", ".join(repr(d) for d in DECISIONS)})),
-    new_label TEXT,
-    note TEXT,
-    time TEXT NOT NULL,
-    action INTEGER NOT NULL,
-    kind TEXT NOT NULL CHECK (kind IN ({", ".join(repr(k) for k in KINDS)})),
-    CHECK ((decision = 'relabel') = (new_label IS NOT NULL))
-);
-CREATE INDEX events_row ON events (row_id, seq);
-CREATE INDEX events_action ON events (action);
-"""
-
-_EVENT_COLUMNS = "seq, row_id, decision, new_label, note, time, action, kind"
-
-
-@dataclass(frozen=True)
-class Event:
-    """One stored change of one row's state (the whole state after the change)."""
-
-    seq: int
-    row_id: str
-    decision: str
-    new_label: str | None
-    note: str | None
-    time: str
-    action: int
-    kind: str
-
-
-@dataclass(frozen=True)
-class Decision:
-    """The current state of one row: its decision (``"clear"`` = none), new label, note and time."""
-
-    row_id: str
-    decision: str
-    new_label: str | None
-    note: str | None
-    time: str
-
-
-#: One requested change: (row_id, decision, new_label, note); note None keeps the row's note.
-Change = tuple[str, str, str | None, str | None]
-
-
-def _now() -> str:
-    return datetime.now(UTC).isoformat(timespec="microseconds")
-
-
-def _check_change(row_id: Any, decision: Any, new_label: Any, note: Any) -> None:
-    if not isinstance(row_id, str):
-        raise ValueError(f"row id must be text, got {type(row_id).__name__}: {row_id!r}")
-    if decision not in DECISIONS:
-        raise ValueError(f"unknown decision {decision!r}; expected one of {', '.join(DECISIONS)}")
-    if decision == "relabel":
-        if not isinstance(new_label, str):
-            raise ValueError(f"relabel of row {row_id!r} needs the new label as text, got {new_label!r}")
-    elif new_label is not None:
-        raise ValueError(f"decision {decision!r} for row {row_id!r} takes no new label, got {new_label!r}")
-    if note is not None and not isinstance(note, str):
-        raise ValueError(f"note for row {row_id!r} must be text or None, got {type(note).__name__}")
+from holdfast.review.events import (
+    APPLICATION_ID,
+    EVENT_COLUMNS,
+    FORMAT,
+    SCHEMA,
+    SCHEMA_VERSION,
+    Change,
+    Decision,
+    Event,
+    check_change,
+    utc_now,
+)
 
 
 class Journal:
@@ -166,7 +84,7 @@ class Journal:
             "format": FORMAT,
             "schema_version": str(SCHEMA_VERSION),
             "holdfast_version": __version__,
-            "created": _now(),
+            "created": utc_now(),
             "fingerprint": fingerprint,
             "data_path": str(data_path),
             "spec": spec_text,
@@ -185,7 +103,7 @@ class Journal:
                 conn.execute(f"PRAGMA application_id={APPLICATION_ID}")
                 conn.execute(f"PRAGMA user_version={SCHEMA_VERSION}")
                 conn.execute("BEGIN IMMEDIATE")
-                for statement in _SCHEMA.split(";"):
+                for statement in SCHEMA.split(";"):
                     if statement.strip():
                         conn.execute(statement)
                 conn.executemany("INSERT INTO meta (key, value) VALUES (?, ?)", meta.items())
@@ -302,7 +220,7 @@ class Journal:
 
     def events(self, row_id: str | None = None) -> list[Event]:
         """All events in order, or only those of ``row_id`` (a row's history)."""
-        sql = f"SELECT {_EVENT_COLUMNS} FROM events"
+        sql = f"SELECT {EVENT_COLUMNS} FROM events"
         args: tuple[str, ...] = ()
         if row_id is not None:
             sql += " WHERE row_id = ?"
@@ -384,12 +302,12 @@ class Journal:
         for c in changes:
             if len(c) != 4:
                 raise ValueError(f"a change is (row_id, decision, new_label, note), got {c!r}")
-            _check_change(*c)
+            check_change(*c)
         if not changes:
             return []
         with self._write() as conn:
             action = self._next_action(conn)
-            time = _now()
+            time = utc_now()
             out = []
             for row_id, decision, new_label, note in changes:
                 if note is None:
@@ -399,12 +317,12 @@ class Journal:
 
     def set_note(self, row_id: str, note: str | None) -> Event:
         """Replace a row's note (None or ``""`` removes it), keeping its decision; one undoable action."""
-        _check_change(row_id, "clear", None, note)
+        check_change(row_id, "clear", None, note)
         with self._write() as conn:
             action = self._next_action(conn)
             now = self._state_of(conn, row_id)
             decision, new_label = (now[0], now[1]) if now else ("clear", None)
-            return self._insert(conn, row_id, decision, new_label, note or None, _now(), action, "do")
+            return self._insert(conn, row_id, decision, new_label, note or None, utc_now(), action, "do")
 
     def undo(self) -> list[Event]:
         """Undo the last action not yet undone; returns the new events (``[]`` if nothing to undo)."""
@@ -511,7 +429,7 @@ class Journal:
                 {"a": target},
             ).fetchall()
             action = self._next_action(conn)
-            time = _now()
+            time = utc_now()
             return [
                 self._insert(conn, row_id, decision or "clear", new_label, note, time, action, kind)
                 for row_id, decision, new_label, note in before

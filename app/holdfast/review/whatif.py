@@ -1,6 +1,7 @@
 """What-if: apply the decisions (relabels, exclusions), refit, and compare before with after.
 
-The decisions are applied to the original table (:func:`holdfast.export.apply_decisions`); the result is
+The decisions are applied to the original table (:func:`holdfast.review.decisions.apply_decisions`); the
+result is
 prepared with the same spec and analysed from scratch (fit + exact LOO over the new support rows), exactly
 as a new scan of the cleaned data set would be. Rows are matched by id. A decision on a held-out row
 changes the held-out data (its error and the test-set bound) but the row is never trained on.
@@ -18,14 +19,14 @@ import numpy as np
 import pandas as pd
 
 from holdfast.atomic import atomic_write_bytes, atomic_write_parquet
-from holdfast.data.prepare import prepare
-from holdfast.export import apply_decisions, decisions_dict, row_ids
-from holdfast.findings import Findings, to_jsonable
-from holdfast.journal import Decision
+from holdfast.data.prepare import prepare, row_ids
+from holdfast.engine.findings import Findings, to_jsonable
+from holdfast.review.decisions import apply_decisions, decisions_dict
+from holdfast.review.events import Decision
 
 if TYPE_CHECKING:
     from holdfast.engine.loo import Progress
-    from holdfast.scan import Scan
+    from holdfast.engine.scan import Scan
 
 #: summary counts compared before/after: (summary key, label)
 COUNTS: tuple[tuple[str, str], ...] = (
@@ -216,17 +217,18 @@ def what_if(
     scan : Scan
         A finished scan (also one read from the cache).
     decisions : dict or DataFrame
-        ``Journal.current()`` or a decisions frame (``holdfast.export.read_decisions``). Confirm and defer
+        ``Journal.current()`` or a decisions frame (``holdfast.review.decisions.read_decisions``). Confirm and
+        defer
         change nothing; ids not in the data are listed in ``unmatched`` and otherwise ignored.
     progress, should_cancel
-        As for :func:`holdfast.scan.run_scan` (the refit runs exact LOO again).
+        As for :func:`holdfast.engine.scan.run_scan` (the refit runs exact LOO again).
 
     Returns
     -------
     WhatIf
         Before/after summaries, the comparison, the rows whose status changed.
     """
-    from holdfast.scan import analyse
+    from holdfast.engine.scan import analyse
 
     table = _as_dict(decisions)
     p = scan.prepared

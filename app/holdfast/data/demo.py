@@ -84,7 +84,7 @@ COLUMNS = ("lot_id", *SENSOR_COLUMNS, "variety", "orchard_block", "shift", "hold
 PLANTED_COLUMNS = ("lot_id", "row", "given_grade", "true_grade", "shift", "holdout")
 
 SPEC_TOML = """\
-# Demo spec for the fruit-packhouse data set (written by holdfast.demo_data / sample_data/make_packhouse.py).
+# Demo spec for the fruit-packhouse data set (written by holdfast.data.demo / sample_data/make_packhouse.py).
 # Apples graded "premium" or "processing" from line-sensor readings; about 3% of the grades
 # are planted grader slips, listed in packhouse_planted.csv.
 
@@ -341,3 +341,15 @@ def main(argv: list[str] | None = None, default_dir: Path | None = None) -> int:
 
 if __name__ == "__main__":
     raise SystemExit(main())
+
+
+def write_demo(folder: Path) -> tuple[Path, Path]:
+    """Write the demo data, spec and planted-error ground truth into ``folder`` unless already there.
+
+    Existing files are kept (with the session journal beside them, reopening the demo restores its
+    decisions). Returns (data path, spec path).
+    """
+    data, spec = folder / "packhouse.parquet", folder / "packhouse.toml"
+    if not (data.exists() and spec.exists()):
+        write_packhouse(folder)
+    return data, spec

@@ -11,10 +11,11 @@ import pandas as pd
 from holdfast import __version__
 from holdfast.data.prepare import Prepared
 from holdfast.data.spec import Spec
+from holdfast.engine.findings import ROW_COLUMNS, Findings
 from holdfast.engine.loo import LooResult
-from holdfast.findings import ROW_COLUMNS, Findings
 from holdfast.insight import bounds as B
 from holdfast.insight.consensus import linear_label_logit
+from holdfast.insight.explain import explain
 from holdfast.insight.flags import FLAG_REASONS, TWIN_TOL, compute_flags
 from holdfast.insight.score import multiscale_dissent, rank_rows, suspicion_score
 from holdfast.learners.base import FittedModel, signed_margins
@@ -282,7 +283,5 @@ def build_findings(
         n_h = int(held.sum())
         e_h = int(rows.loc[held, "loo_miss"].sum())
         summary["held_out"] = {"n": n_h, "errors": e_h, "error_rate": e_h / n_h}
-    from holdfast.insight.explain import explain
-
     summary["explanation"] = explain(rows, prepared.X[tr], model.params)
     return Findings(rows=rows, summary=summary, classes=[str(c) for c in prepared.classes])

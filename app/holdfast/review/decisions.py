@@ -1,4 +1,4 @@
-"""Exports of a session: the decisions table and the cleaned data set.
+"""The decisions as a table: built from the journal, read back from a file, applied to the data.
 
 Decisions table columns (``DECISION_COLUMNS``), one row per row that carries a decision or a note:
 ``id`` (text), ``old_label`` (the label in the data, as text), ``new_label`` (text, relabels only),
@@ -10,17 +10,15 @@ UTC of the row's last change). Missing values are empty (null in Parquet, empty 
 from __future__ import annotations
 
 from collections.abc import Mapping
-from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
-import pyarrow as pa
 
-from holdfast.atomic import atomic_write
 from holdfast.data.prepare import row_ids
 from holdfast.errors import DataError, UserError
-from holdfast.journal import DECISIONS, Decision, Journal
+from holdfast.review.events import DECISIONS, Decision
+from holdfast.review.journal import Journal
 
 DECISION_COLUMNS: tuple[str, ...] = (
     "id",
@@ -35,29 +33,14 @@ DECISION_COLUMNS: tuple[str, ...] = (
 #: Columns a decisions file must have to be read back (the others are filled with empty values).
 REQUIRED_COLUMNS: tuple[str, ...] = ("id", "decision", "new_label")
 _TEXT_COLUMNS = tuple(c for c in DECISION_COLUMNS if c != "score")
-#: Parquet schema of a decisions file: fixed, so that a column with no values is still text, not null
-DECISIONS_SCHEMA = pa.schema(
-    [(c, pa.float64() if c == "score" else pa.large_string()) for c in DECISION_COLUMNS]
-)
 FORMATS = (".parquet", ".csv")
 
 
-@dataclass
-class CleanedExport:
-    """What :func:`export_cleaned` wrote: rows kept, rows relabelled and excluded, unmatched ids."""
-
-    path: Path
-    rows: int
-    relabelled: int
-    excluded: int
-    unmatched: list[str] = field(default_factory=list)
-
-
-# ---------------------------------------------------------------------------- decisions table
 def decisions_frame(journal: Journal, rows: pd.DataFrame) -> pd.DataFrame:
     """The decisions table of ``journal`` joined with the findings per-row frame ``rows``.
 
-    ``rows`` needs the columns ``id``, ``label``, ``score`` and ``flags`` (see holdfast.findings). Rows of
+    ``rows`` needs the columns ``id``, ``label``, ``score`` and ``flags`` (see holdfast.engine.findings).
+    Rows of
     the journal whose id is not in ``rows`` still appear, with empty ``old_label``, ``score`` and ``flags``.
     Output order: the order of ``rows`` first, then unmatched ids in the order they were last changed.
     """
@@ -89,18 +72,6 @@ def decisions_frame(journal: Journal, rows: pd.DataFrame) -> pd.DataFrame:
     return _normalise(pd.DataFrame.from_records(records, columns=list(DECISION_COLUMNS)))
 
 
-def export_decisions(journal: Journal, rows: pd.DataFrame, path: str | Path, *, force: bool = False) -> Path:
-    """Write :func:`decisions_frame` to ``path`` (Parquet or CSV by suffix) atomically.
-
-    An existing file is a UserError unless ``force``; an unknown suffix is a UserError naming it.
-    """
-    target = Path(path)
-    _suffix(target)
-    _refuse_overwrite(target, force)
-    _write_frame(decisions_frame(journal, rows), target, schema=DECISIONS_SCHEMA)
-    return target
-
-
 def read_decisions(path: str | Path) -> pd.DataFrame:
     """Read a decisions file written by :func:`export_decisions` (or edited by hand) and validate it.
 
@@ -109,7 +80,7 @@ def read_decisions(path: str | Path) -> pd.DataFrame:
     an unknown decision, a relabel without a new label, or a repeated id.
     """
     source = Path(path)
-    suffix = _suffix(source)
+    suffix = table_suffix(source)
     if not source.is_file():
         raise DataError(f"{source}: no such decisions file")
     try:
@@ -152,7 +123,6 @@ def _validate(frame: pd.DataFrame, source: Path) -> None:
         raise DataError(f"{source}: row id '{dup.iloc[0]}' appears more than once")
 
 
-# ---------------------------------------------------------------------------- cleaned data set
 def apply_decisions(
     data: pd.DataFrame,
     decisions: Mapping[str, Decision] | pd.DataFrame,
@@ -162,7 +132,8 @@ def apply_decisions(
 ) -> pd.DataFrame:
     """The data with decisions applied: relabels written, excluded rows removed, nothing else changed.
 
-    ``decisions`` is a journal's :meth:`~holdfast.journal.Journal.current` dict or a decisions frame (as
+    ``decisions`` is a journal's :meth:`~holdfast.review.journal.Journal.current` dict or a decisions frame
+    (as
     from :func:`read_decisions`); frames are converted to the dict shape. Confirm, defer and clear leave a
     row as it is; decisions whose id is not in the data are ignored here (see ``Journal.reconcile``).
     Columns, their order and dtypes, and the row order and index of the kept rows are preserved. A new
@@ -192,35 +163,6 @@ def apply_decisions(
     out = data.copy()
     out[label_column] = pd.Series(labels, index=data.index, dtype=column.dtype)
     return out.loc[keep]
-
-
-def export_cleaned(
-    journal: Journal,
-    data: pd.DataFrame,
-    path: str | Path,
-    *,
-    id_column: str | None,
-    label_column: str,
-    force: bool = False,
-) -> CleanedExport:
-    """Write the data with the journal's decisions applied (:func:`apply_decisions`) to ``path`` atomically.
-
-    Parquet or CSV by suffix; an existing file is a UserError unless ``force``.
-    """
-    target = Path(path)
-    _suffix(target)
-    _refuse_overwrite(target, force)
-    current = journal.current()
-    cleaned = apply_decisions(data, current, id_column=id_column, label_column=label_column)
-    present = set(row_ids(data, id_column))
-    _write_frame(cleaned, target)
-    return CleanedExport(
-        path=target,
-        rows=len(cleaned),
-        relabelled=sum(d.decision == "relabel" and rid in present for rid, d in current.items()),
-        excluded=len(data) - len(cleaned),
-        unmatched=[rid for rid in current if rid not in present],
-    )
 
 
 def decisions_dict(frame: pd.DataFrame) -> dict[str, Decision]:
@@ -273,37 +215,12 @@ class _LabelCaster:
         return text
 
 
-# ---------------------------------------------------------------------------- helpers
-def _suffix(path: Path) -> str:
+def table_suffix(path: Path) -> str:
+    """The suffix of a decisions or data file we read or write: .parquet or .csv (UserError otherwise)."""
     suffix = path.suffix.lower()
     if suffix not in FORMATS:
         raise UserError(f"{path}: unknown file type '{path.suffix}'; use .parquet or .csv")
     return suffix
-
-
-def _refuse_overwrite(path: Path, force: bool) -> None:
-    if path.exists() and not force:
-        raise UserError(f"{path}: already exists; use --force to overwrite")
-
-
-def _write_frame(frame: pd.DataFrame, path: Path, schema: pa.Schema | None = None) -> None:
-    """Write ``frame`` atomically; Parquet with ``schema`` if given, CSV with "\\n" line ends everywhere."""
-    if _suffix(path) == ".parquet":
-
-        def writer(p: Path) -> None:
-            frame.to_parquet(p, index=False, schema=schema)
-
-    else:
-
-        def writer(p: Path) -> None:
-            frame.to_csv(p, index=False, lineterminator="\n")
-
-    try:
-        atomic_write(path, writer, force=True)
-    except UserError:
-        raise
-    except Exception as exc:  # OS and pyarrow errors: the file was not written, nothing is left behind
-        raise UserError(f"{path}: cannot write ({type(exc).__name__}: {exc})") from exc
 
 
 def _normalise(frame: pd.DataFrame) -> pd.DataFrame:

@@ -16,8 +16,9 @@ from holdfast.data.load import fingerprint_file, read_table
 from holdfast.data.spec import spec_from_text
 from holdfast.engine.loo import Progress
 from holdfast.errors import DataError, SessionError, UserError
-from holdfast.export import FORMATS, export_cleaned, export_decisions
-from holdfast.journal import Journal
+from holdfast.output.tables import export_cleaned, export_decisions
+from holdfast.review.decisions import FORMATS
+from holdfast.review.journal import Journal
 from holdfast.textsafe import safe_text
 
 #: How many unmatched ids a warning lists before it says "and N more".
@@ -98,8 +99,8 @@ def export_session(
         Nothing asked, an existing output without ``force``, a missing or foreign session file, a missing
         data file: one line naming the file.
     """
-    from holdfast.report import write_report
-    from holdfast.scan import run_scan
+    from holdfast.engine.scan import run_scan
+    from holdfast.output.report import write_report
 
     warn = warn or _stderr_warning
     session = Path(session_path)
@@ -163,7 +164,7 @@ def export_session(
             whatif = None
             present = set(matched)
             if any(d.decision in ("relabel", "exclude") and rid in present for rid, d in current.items()):
-                from holdfast.insight.whatif import what_if
+                from holdfast.review.whatif import what_if
 
                 try:
                     whatif = what_if(scan, current, progress=progress)

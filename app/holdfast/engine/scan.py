@@ -20,9 +20,10 @@ from holdfast.atomic import atomic_write_parquet
 from holdfast.data.load import fingerprint_file, read_table
 from holdfast.data.prepare import Prepared, prepare
 from holdfast.data.spec import Spec
+from holdfast.engine.build import build_findings
 from holdfast.engine.cache import RefitStore, cache_dir
+from holdfast.engine.findings import Findings
 from holdfast.engine.loo import LooResult, Progress, exact_loo, support_key
-from holdfast.findings import Findings
 from holdfast.learners import make_learner
 from holdfast.learners.base import FittedModel
 
@@ -51,8 +52,6 @@ def analyse(
     store_factory: Callable[[str], RefitStore] | None = None,
 ) -> tuple[Findings, dict[int, np.ndarray], FittedModel]:
     """Fit, run exact LOO over the support rows, gather the evidence; return findings and flips."""
-    from holdfast.insight.build import build_findings
-
     start = time.monotonic()
     train_idx = prepared.train_index
     X_train = prepared.X[train_idx]

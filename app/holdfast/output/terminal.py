@@ -76,7 +76,7 @@ def top_rows_text(rows: pd.DataFrame, n: int = 10) -> str:
     """The ``n`` training rows with the best (lowest) rank: rank, id, label -> LOO prediction, score, flags.
 
     ``rows`` is the findings per-row frame (columns ``rank``, ``id``, ``label``, ``loo_prediction``,
-    ``score``, ``flags``, ``held_out``; see holdfast.findings).
+    ``score``, ``flags``, ``held_out``; see holdfast.engine.findings).
     """
     train = rows.loc[~rows["held_out"].to_numpy(dtype=bool)]
     top = train.sort_values("rank", kind="stable").head(n)

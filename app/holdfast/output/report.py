@@ -24,12 +24,13 @@ import pandas as pd
 from holdfast import __version__
 from holdfast.atomic import atomic_write_bytes
 from holdfast.errors import UserError
-from holdfast.export import decisions_dict
-from holdfast.journal import Decision, Journal
+from holdfast.review.decisions import decisions_dict
+from holdfast.review.events import Decision
+from holdfast.review.journal import Journal
 
 if TYPE_CHECKING:
-    from holdfast.insight.whatif import WhatIf
-    from holdfast.scan import Scan
+    from holdfast.engine.scan import Scan
+    from holdfast.review.whatif import WhatIf
 
 #: How many of the most suspicious rows the report lists.
 TOP_ROWS = 30
@@ -409,7 +410,7 @@ def write_report(
     force : bool
         Overwrite an existing report or image; without it an existing file is a UserError naming it.
     whatif : WhatIf, optional
-        A what-if comparison to include (:func:`holdfast.insight.whatif.what_if`).
+        A what-if comparison to include (:func:`holdfast.review.whatif.what_if`).
     top : int
         How many of the most suspicious rows to list.
 
