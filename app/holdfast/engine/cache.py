@@ -19,7 +19,7 @@ from holdfast import __version__
 from holdfast.learners.base import RefitOutcome
 
 #: Bump when the cached findings change shape (new columns or summary keys), so old caches are not reused.
-CACHE_FORMAT = 4
+CACHE_FORMAT = 5
 
 
 def cache_root() -> Path:

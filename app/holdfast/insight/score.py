@@ -116,18 +116,20 @@ def multiscale_dissent(X: np.ndarray, y: np.ndarray, k: int) -> np.ndarray:
     return np.mean([other[:, :c].mean(axis=1) for c in counts], axis=0)
 
 
-def suspicion_score(rows: pd.DataFrame) -> np.ndarray:
+def suspicion_score(rows: pd.DataFrame, margin_unit: float = 1.0) -> np.ndarray:
     """The score of every row of the per-row frame; held-out rows get NaN.
 
     Uses the columns ``loo_margin`` (falls back to +-1 by ``loo_miss`` where missing),
-    ``neighbour_dissent_avg`` and ``linear_logit`` (each 0 where missing).
+    ``neighbour_dissent_avg`` and ``linear_logit`` (each 0 where missing). ``margin_unit`` is the
+    decision-value size that counts as one SVM margin unit for the learner family in use (1 for the SVM;
+    see ``holdfast.engine.build.margin_unit``): LOO margins are divided by it before the clip.
     """
     n = len(rows)
     miss = rows["loo_miss"].to_numpy(dtype=bool)
     signed = np.where(miss, -1.0, 1.0)
     if "loo_margin" in rows:
         lm = rows["loo_margin"].to_numpy(dtype=float)
-        lm = np.where(np.isnan(lm), signed, lm)
+        lm = np.where(np.isnan(lm), signed, lm / margin_unit)
     else:
         lm = signed
     dissent = (
