@@ -74,7 +74,9 @@ def test_scan_with_each_family_through_the_cli(family, data, tmp_path, capsys):
     rows = pd.read_parquet(out / "rows.parquet")
     fam = summary["family"]
     assert fam["name"] == family and fam["support_name"] == SUPPORT_NAME[family]
-    assert f"{SUPPORT_NAME[family]} d" in printed
+    support_line = next(line for line in printed.splitlines() if line.startswith("support rows d"))
+    if family != "svm":
+        assert f"{SUPPORT_NAME[family]}: " in support_line
     train = ~rows["held_out"]
     assert summary["d"] == int(rows.loc[train, "support"].sum())
     assert summary["loo_exact_rows"] == int(rows.loc[train, "loo_exact"].sum())
@@ -138,3 +140,19 @@ def test_bad_parameters_give_one_line_and_exit_2(family, extra, message, data, t
     err = capsys.readouterr().err.strip()
     assert code == 2
     assert message in err and len(err.splitlines()) == 1
+
+
+@pytest.mark.parametrize(("family", "unit"), [("knn", 0.5), ("logistic", 1.0), ("perceptron", None)])
+def test_score_reads_each_family_loo_margin_in_its_own_unit(family, unit, data, tmp_path):
+    # holdfast.insight.score formula with the LOO margin divided by the family's margin unit
+    spec = spec_from_text(_spec(tmp_path, family, FAMILIES[family]), "s.toml")
+    scan = run_scan(data, spec, use_cache=False)
+    rows = scan.findings.rows[~scan.findings.rows["held_out"]]
+    if unit is None:  # perceptron: the median |y f(x)| of the training rows
+        unit = float(np.median(np.abs(rows["margin"].to_numpy())))
+    expected = (
+        -np.clip(rows["loo_margin"].to_numpy() / unit, -2, 2)
+        + 0.5 * rows["neighbour_dissent_avg"].to_numpy()
+        - 0.1 * np.clip(rows["linear_logit"].to_numpy(), -4, 4)
+    )
+    assert np.allclose(rows["score"].to_numpy(), expected)

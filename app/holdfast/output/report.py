@@ -219,10 +219,11 @@ def _summary(scan: Scan) -> list[str]:
         if k in learner
     )
     family = s.get("family") or {}
-    if "bounded" in family.get("columns", ("bounded",)):
+    if family.get("name", "svm") == "svm":
         support = f"{s['d']} ({s['bounded']} bounded, {s['d'] - s['bounded']} free)"
-    else:
-        support = f"{s['d']} ({md_escape(family.get('support_meaning', ''))})"
+    else:  # what "support rows" means for this family
+        meaning = f"{family.get('support_name', '')}: {family.get('support_meaning', '')}"
+        support = f"{s['d']} ({md_escape(meaning)})"
     loo_kind = "exact" if s.get("loo_exact") else "approximate"
     if not s.get("loo_exact") and "loo_exact_rows" in s:
         loo_kind += f"; {s['loo_exact_rows']} of {s['m']} rows exact"
@@ -231,7 +232,7 @@ def _summary(scan: Scan) -> list[str]:
         ["data fingerprint", md_escape(s.get("data", {}).get("fingerprint", ""))],
         ["learner", md_escape(params)],
         ["rows (training) m", _num(s["m"])],
-        [md_escape(f"{family.get('support_name', 'support rows')} d"), support],
+        ["support rows d", support],
         ["training errors", _num(s["training_errors"])],
         ["LOO errors", f"{s['loo_errors']} ({loo_kind})"],
         ["class counts", ", ".join(f"{md_escape(c)}: {n}" for c, n in s.get("class_counts", {}).items())],

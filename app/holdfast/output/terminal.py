@@ -31,14 +31,14 @@ def summary_text(summary: dict[str, Any]) -> str:
     if not summary["loo_exact"] and "loo_exact_rows" in summary:
         kind = f"approximate; {summary['loo_exact_rows']} of {m} rows exact"
     loo = int(summary["loo_errors"])
-    name = family.get("support_name", "support rows")
-    if "bounded" in family.get("columns", ("bounded",)):
+    if family.get("name", "svm") == "svm":
         support = f"{summary['d']}  ({summary['bounded']} bounded, {free} free)"
-    else:
-        support = f"{summary['d']}  ({safe_text(family.get('support_meaning', ''))})"
+    else:  # what "support rows" means for this family
+        meaning = f"{family.get('support_name', '')}: {family.get('support_meaning', '')}"
+        support = f"{summary['d']}  {safe_text(meaning)}"
     pairs: list[tuple[str, str]] = [
         ("rows (training)", f"{m}" + (f"   held out {held['n']}" if held else "")),
-        (f"{name} d", support),
+        ("support rows d", support),
         ("training errors", f"{summary['training_errors']}"),
         ("LOO errors", f"{loo}  ({kind}; error rate {loo / m:.4f})" if m else f"{loo}  ({kind})"),
     ]

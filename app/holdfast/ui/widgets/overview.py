@@ -204,10 +204,10 @@ class OverviewPanel(VerticalScroll):
         out.append(self._pair("m", _count(m), "training rows"))
         share = f"{int(d) / int(m):.1%} of m" if m and d is not None else ""
         family = s.get("family") or {}
-        name = safe_text(family.get("support_name", "support rows"))
-        out.append(self._pair(f"{name} d", _count(d), share))
-        if family.get("support_meaning"):
-            out.append(Text(safe_text(family["support_meaning"]), style=self._s("muted")))
+        out.append(self._pair("support rows d", _count(d), share))
+        if family.get("name", "svm") != "svm":  # what "support rows" means for this family
+            meaning = f"{family.get('support_name', '')}: {family.get('support_meaning', '')}"
+            out.append(Text(safe_text(meaning), style=self._s("muted")))
         if "bounded" in family.get("columns", ("bounded",)):
             out.append(self._pair("bounded", _count(s.get("bounded")), f"free {_count(s.get('free'))}"))
         if "essential" in s:
