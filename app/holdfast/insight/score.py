@@ -77,10 +77,10 @@ wine 0 vs rest, random          0.889 / 0.926 0.815 / 0.926 0.926 / 0.889
 demo data (77 planted slips)    0.481 / 0.442 0.325 / 0.442 0.455 / 0.442
 ==============================  ============  ============  ============
 
-The perceptron's LOO margins carry little: leaving out one update row changes the whole update sequence,
-so its LOO margins are noisy (on the demo data ranking by its update count does no better: 0.42 at 10 epochs, measured for this module); the
-score there does worse than the baseline, and the SVM or logistic family is the better choice for
-ranking.
+The perceptron's LOO margins carry little: leaving out one update row changes the whole update
+sequence, so its LOO margins are noisy. On the demo data, ranking by its update count does no better
+(0.42 at 10 epochs, measured for this module); the score there does worse than the baseline, and the SVM
+or logistic family is the better choice for ranking.
 
 Tried and left out (no gain on the tuning seeds): the binary LOO miss, bounded and training margin
 (the first combination: 0.756 near-boundary on breast cancer where the LOO-margin formula gives 0.804),
