@@ -250,7 +250,8 @@ def _bounds(scan: Scan) -> list[str]:
     rows = []
     for key, item in b.items():
         detail = []
-        for k in ("count", "k", "n", "errors", "misses_outside", "count_bounded_as_errors"):
+        keys = ("count", "k", "n", "errors", "misses_outside", "count_bounded_as_errors", "size", "updates")
+        for k in keys:
             if k in item:
                 detail.append(f"{k}={_num(item[k])}")
         if item.get("note"):

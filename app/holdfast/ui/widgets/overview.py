@@ -244,7 +244,8 @@ class OverviewPanel(VerticalScroll):
             source = safe_text(item.get("source", "") or "")
             if not self.full:  # compact: value and "Author Year"; note and whole source are one key (v) away
                 note, source = "", source.split(",")[0]
-            out.append(self._pair(safe_text(item.get("name", key)), fmt_number(value, ".4f"), note))
+            shown = fmt_number(float("nan") if value is None else value, ".4f")  # None: does not apply
+            out.append(self._pair(safe_text(item.get("name", key)), shown, note))
             if source:
                 out.append(Padding(Text(source, style=self._s("muted")), (0, 0, 0, 2)))
         if len(out) == 1:
