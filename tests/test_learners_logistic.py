@@ -12,6 +12,8 @@ References:
 
 from __future__ import annotations
 
+import pickle
+
 import numpy as np
 import pytest
 from sklearn.datasets import load_breast_cancer, load_digits, load_iris, load_wine
@@ -124,6 +126,9 @@ def test_influential_rows_and_their_flip_counts_come_from_exact_refits():
     top, low = int(np.argmax(cook)), int(np.argmin(cook))
     problem = learner.refit_problem()
     assert problem.refit_without(top).max_change > problem.refit_without(low).max_change
+    # the problem travels to dask workers by pickle and answers the same there
+    shipped = pickle.loads(pickle.dumps(problem)).refit_without(top)
+    assert shipped.loo_code == loo.loo_code[top] and np.isclose(shipped.loo_margin, loo.loo_margin[top])
 
 
 def test_params_are_validated_with_one_line():

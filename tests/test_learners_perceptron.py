@@ -11,10 +11,13 @@ References:
 
 from __future__ import annotations
 
+import pickle
 import warnings
 
 import numpy as np
 import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 from sklearn.datasets import load_breast_cancer, load_digits, load_iris, load_wine
 from sklearn.exceptions import ConvergenceWarning
 from sklearn.linear_model import Perceptron
@@ -141,3 +144,31 @@ def test_params_are_validated_with_one_line():
         validate_params({"family": "perceptron", "epochs": 0}, "s.toml")
     with pytest.raises(SpecError, match=r"'learner.intercept' must be true or false"):
         validate_params({"family": "perceptron", "intercept": "yes"}, "s.toml")
+
+
+@settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    seed=st.integers(0, 10_000),
+    m=st.integers(6, 40),
+    epochs=st.integers(1, 6),
+    classes=st.sampled_from([2, 3]),
+)
+def test_compression_and_loo_on_random_sets(seed, m, epochs, classes):
+    # Floyd & Warmuth 1995 on random data (integers: exact zeros and ties in y f(x) are common), and the
+    # LOO against scikit-learn Perceptron(shuffle=False, tol=None) + LeaveOneOut + cross_val_predict
+    rng = np.random.default_rng(seed)
+    X = rng.integers(-2, 3, size=(m, 3)).astype(float)
+    y = np.arange(m) % classes
+    rng.shuffle(y)
+    learner = PerceptronLearner(epochs=epochs)
+    model = learner.fit(X, y)
+    per_class = model.extras["update_rows"]
+    for k in range(per_class.shape[0]):
+        ypm = np.where(y == (1 if classes == 2 else k), 1.0, -1.0)
+        w, b, _ = run_perceptron(X, ypm, np.flatnonzero(model.support), epochs)
+        assert np.array_equal(w, learner.W_[k]) and b == learner.b_[k]
+    loo = exact_loo(model, pickle.loads(pickle.dumps(learner.refit_problem())))  # as a dask worker gets it
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        reference = cross_val_predict(_sk(epochs), X, y, cv=LeaveOneOut())
+    assert np.array_equal(loo.loo_code, reference)
