@@ -63,7 +63,11 @@ def test_scan_writes_rows_and_summary(data, tmp_path, capsys):
     printed = capsys.readouterr().out
     assert "support rows d" in printed and "evidence, not proof" in printed
     rate = summary["loo_errors"] / summary["m"]
-    assert f"LOO errors            {summary['loo_errors']}  (exact; error rate {rate:.4f})" in printed
+    loo_line = next(line for line in printed.splitlines() if line.startswith("LOO errors "))
+    assert loo_line.split(None, 2)[2] == f"{summary['loo_errors']}  (exact; error rate {rate:.4f})"
+    # d/m and the LOO bound are one number for an SVM: one line with both names
+    both = [line for line in printed.splitlines() if line.startswith("support fraction d/m = LOO bound ")]
+    assert len(both) == 1 and f"{summary['bounds']['loo_bound']['value']:.4f}" in both[0]
     c = summary["explanation"]["composition"]
     assert f"why d is {summary['d']}: {c['bounded_misclassified']} bounded and misclassified" in printed
     # the ten best-ranked training rows, in rank order, as pandas picks them from rows.parquet

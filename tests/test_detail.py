@@ -208,7 +208,7 @@ def test_header_fields_follow_the_findings(scan, ctx):
         assert d.rank == r["rank"] and d.alpha == r["alpha"]
         np.testing.assert_equal([d.margin, d.score], [r["margin"], r["score"]])
         np.testing.assert_equal([d.loo_margin, d.linear_logit], [r["loo_margin"], r["linear_logit"]])
-        names = [s for s in r["flags"].split(",") if s]
+        names = [s for s in r["flag_names"].split(",") if s]
         assert d.flags == [(name, FLAG_REASONS[name]) for name in names]
 
 

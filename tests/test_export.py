@@ -43,7 +43,7 @@ def rows(data: pd.DataFrame) -> pd.DataFrame:
             "id": pd.Series([str(v) for v in data["crate_id"]], dtype="string"),
             "label": data["grade"],
             "score": [0.1, 2.5, 0.0, 1.25, 3.0, 0.5],
-            "flags": ["", "loo_miss,bounded", "", "support", "loo_miss", ""],
+            "flag_names": ["", "loo_miss,bounded", "", "support", "loo_miss", ""],
         }
     )
 
@@ -75,12 +75,12 @@ def test_decisions_frame_contents(journal: Journal, rows: pd.DataFrame) -> None:
     assert by_id.loc["105", "old_label"] == "processing"
     assert by_id.loc["105", "new_label"] == "premium"
     assert by_id.loc["105", "score"] == 3.0
-    assert by_id.loc["102", "flags"] == "loo_miss,bounded"
+    assert by_id.loc["102", "flag_names"] == "loo_miss,bounded"
     assert by_id.loc["102", "decision"] == "exclude"
     assert by_id.loc["104", "note"] == "fine"
     assert by_id.loc["106", "decision"] == "clear" and by_id.loc["106", "old_label"] == "NA"
     missing = by_id.loc["999"]
-    assert missing["old_label"] is None and missing["flags"] is None and np.isnan(missing["score"])
+    assert missing["old_label"] is None and missing["flag_names"] is None and np.isnan(missing["score"])
     assert missing["decision"] == "relabel" and missing["new_label"] == "processing"
     assert all(t.endswith("+00:00") for t in frame["time"])
 

@@ -111,8 +111,8 @@ def test_export_all_three(session, capsys):
     rows = session["rows"].set_index("id")
     for rec in decisions.iloc[:5].itertuples():
         assert rec.score == pytest.approx(rows.loc[rec.id, "score"])
-        assert ("" if pd.isna(rec.flags) else rec.flags) == rows.loc[rec.id, "flags"]
-    assert "loo_miss" in decisions.set_index("id").loc[session["top"], "flags"]
+        assert ("" if pd.isna(rec.flag_names) else rec.flag_names) == rows.loc[rec.id, "flag_names"]
+    assert "loo_miss" in decisions.set_index("id").loc[session["top"], "flag_names"]
 
     # cleaned set = the same edit done with pandas: relabel the top row, drop S-010, columns and order kept
     expected = frame.copy()
@@ -223,3 +223,28 @@ def test_warnings_show_ids_literally(capsys):
     _stderr_warning("1 decision names an id not in the data: \x1b[2Jgone\nnext")
     err = capsys.readouterr().err
     assert "\x1b" not in err and "\\x1b[2Jgone\\nnext" in err and err.count("\n") == 1
+
+
+def test_report_reuses_the_what_if_of_the_same_decisions(session, monkeypatch):
+    """The inspector's what-if, then ``export --report``: the report's what-if comes from the cache."""
+    import holdfast.learners.svm as svm_mod
+    from holdfast.review.whatif import what_if
+
+    scan = run_scan(session["data"], spec_from_text(SPEC))
+    with Journal.open(session["db"]) as journal:
+        shown = what_if(scan, journal.current())
+    refits = {"n": 0}
+    real = svm_mod.SVMRefitProblem.refit_without
+
+    def counted(problem, row):
+        refits["n"] += 1
+        return real(problem, row)
+
+    monkeypatch.setattr(svm_mod.SVMRefitProblem, "refit_without", counted)
+    report = session["tmp"] / "again.md"
+    assert main(["export", str(session["db"]), "--report", str(report)]) == 0
+    assert refits["n"] == 0
+    text = report.read_text(encoding="utf-8")
+    assert "self-fulfilling" in text and "held-out" in text
+    # the caution names this comparison's LOO counts ("->" escaped for Markdown)
+    assert f"LOO errors {shown.before['loo_errors']} -\\> {shown.after['loo_errors']}" in text

@@ -63,9 +63,10 @@ def test_slip_raises_loo_miss_wrong_side_bounded_and_dissent(slip):
     _, rows, _ = slip
     for name in ("loo_miss", "wrong_side", "bounded", "neighbour_dissent"):
         assert rows.loc[20, f"flag_{name}"], name
-    assert set(rows.loc[20, "flags"].split(",")) >= {"loo_miss", "wrong_side", "bounded", "neighbour_dissent"}
+    raised = set(rows.loc[20, "flag_names"].split(","))
+    assert raised >= {"loo_miss", "wrong_side", "bounded", "neighbour_dissent"}
     # rows of cluster 'a' are far from the boundary and agree with their neighbours: no flag at all
-    assert (rows.loc[:9, "flags"] == "").all()
+    assert (rows.loc[:9, "flag_names"] == "").all()
     assert not rows["flag_twin_conflict"].any()
 
 
@@ -159,7 +160,7 @@ def test_held_out_rows_get_no_flags():
     assert rows.loc[21, "loo_miss"]  # held-out: predicted as the other class, yet
     held = rows["held_out"].to_numpy()
     assert not rows.loc[held, [f"flag_{n}" for n in FLAG_REASONS]].to_numpy().any()
-    assert (rows.loc[held, "flags"] == "").all()
+    assert (rows.loc[held, "flag_names"] == "").all()
     assert not rows.loc[23, "flag_twin_conflict"]  # its twin is held out: not a training conflict
 
 
@@ -177,9 +178,12 @@ def test_flags_text_lists_raised_flags_in_order():
         }
     )
     out = compute_flags(frame)
-    assert out["flags"].tolist() == [
+    assert out["flag_names"].tolist() == [
         "loo_miss,wrong_side,bounded,neighbour_dissent,heavy_flip",
         "twin_conflict",
         "",
     ]
-    assert set(FLAG_REASONS) == {c.removeprefix("flag_") for c in out.columns if c.startswith("flag_")}
+    # one boolean column per flag; ``flag_names`` is the text list, so no flag may be called "names"
+    assert "names" not in FLAG_REASONS
+    bools = {c.removeprefix("flag_") for c in out.columns if c.startswith("flag_") and c != "flag_names"}
+    assert set(FLAG_REASONS) == bools

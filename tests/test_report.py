@@ -127,7 +127,15 @@ def test_report_bounds_top_rows_and_decisions_match_the_scan(scan, tmp_path):
     cells = [[html.unescape(c) for c in r] for t in _tables(rendered) for r in t]
     summary = scan.findings.summary
     by_name = {r[0]: r for r in cells}
-    for item in summary["bounds"].values():
+    bounds = summary["bounds"]
+    assert bounds["loo_bound"]["misses_outside"] == 0  # an SVM: the LOO bound equals d/m, one row for both
+    both = by_name[f"{bounds['support_fraction']['name']} = {bounds['loo_bound']['name']}"]
+    assert both[1] == f"{bounds['loo_bound']['value']:.4f}"
+    assert both[3] == bounds["loo_bound"]["source"]
+    assert bounds["support_fraction"]["name"] not in by_name and bounds["loo_bound"]["name"] not in by_name
+    for key, item in bounds.items():
+        if key in ("support_fraction", "loo_bound"):
+            continue
         row = by_name[item["name"]]
         assert row[1] == f"{item['value']:.4f}" and row[3] == item["source"]
     # top 30 in rank order, ids as in the findings
@@ -136,7 +144,7 @@ def test_report_bounds_top_rows_and_decisions_match_the_scan(scan, tmp_path):
     ranked = [r for r in cells if r and r[0].isdigit() and len(r) == 10]
     assert [r[1] for r in ranked] == [str(i).replace("\x1b", "\\x1b") for i in top["id"]]
     assert [int(r[0]) for r in ranked] == list(range(1, 31))
-    assert [r[8] for r in ranked] == [f.replace(",", ", ") for f in top["flags"]]
+    assert [r[8] for r in ranked] == [f.replace(",", ", ") for f in top["flag_names"]]
     # decisions: counts and one row per decision
     counts = pd.Series([d.decision for d in decisions.values()]).value_counts()
     assert ", ".join(f"{k}: {v}" for k, v in counts.items()) + f" (total {len(decisions)})." in text
@@ -222,7 +230,7 @@ def test_plot_text_keeps_data_text_literal_in_images():
     # "_" (matplotlib documentation: "Writing mathematical expressions", Axes.legend)
     from matplotlib import cbook
 
-    from holdfast.output.report import plot_text
+    from holdfast.output.plots import plot_text
 
     assert cbook.is_math_text("$x^2$ grade")
     assert not cbook.is_math_text(plot_text("$x^2$ grade"))

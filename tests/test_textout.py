@@ -24,7 +24,7 @@ def _rows(n: int = 30, seed: int = 0) -> pd.DataFrame:
             "loo_prediction": rng.choice(["premium", "processing"], n),
             "score": score,
             "rank": rank,
-            "flags": np.where(score > 0, "loo_miss,bounded", ""),
+            "flag_names": np.where(score > 0, "loo_miss,bounded", ""),
             "held_out": held,
         }
     )
@@ -39,7 +39,7 @@ def test_top_rows_are_the_best_ranked_training_rows_in_order():
     expected = rows[~rows["held_out"]].nsmallest(5, "rank")["id"].tolist()
     assert listed == expected
     top = rows.set_index("id").loc[expected[0]]
-    assert f"{top['score']:.3f}" in lines[2] and top["flags"] in lines[2]
+    assert f"{top['score']:.3f}" in lines[2] and top["flag_names"] in lines[2]
 
 
 def test_more_rows_asked_than_there_are():

@@ -97,8 +97,15 @@ def test_relabelling_the_planted_flips_back_matches_a_direct_fit(scan, data):
         assert changed.loc[ids[i], "label_before"] != changed.loc[ids[i], "label_after"] == truth[i]
     names = {name: (b, a) for name, b, a in w.comparison}
     assert names["LOO errors"] == (loo_before, loo_ref)
-    for key, item in w.after["bounds"].items():
-        assert names[item["name"]][1] == item["value"], key
+    bounds = w.after["bounds"]
+    both = (
+        f"{bounds['support_fraction']['name']} = {bounds['loo_bound']['name']}"  # equal for an SVM: one row
+    )
+    assert names[both] == (w.before["bounds"]["loo_bound"]["value"], bounds["loo_bound"]["value"])
+    assert bounds["loo_bound"]["name"] not in names and bounds["support_fraction"]["name"] not in names
+    for key, item in bounds.items():
+        if key not in ("support_fraction", "loo_bound"):
+            assert names[item["name"]][1] == item["value"], key
     assert list(w.changed.columns) == list(CHANGED_COLUMNS)
 
 
@@ -237,3 +244,103 @@ def test_scan_with_a_missing_decisions_file_fails_before_scanning(tmp_path, data
     err = capsys.readouterr().err.strip().splitlines()
     assert rc == 2 and len(err) == 1 and str(missing) in err[0]
     assert not (tmp_path / "o").exists()
+
+
+def test_relabel_to_a_class_that_does_not_exist_is_refused_before_scanning(tmp_path, data, capsys):
+    frame = data[0]
+    path = tmp_path / "cases.parquet"
+    frame.to_parquet(path, index=False)
+    spec_path = tmp_path / "spec.toml"
+    spec_path.write_text(SPEC)
+    dec_path = tmp_path / "decisions.csv"
+    pd.DataFrame({"id": ["case-0003"], "decision": ["relabel"], "new_label": ["banana"]}).to_csv(
+        dec_path, index=False
+    )
+    argv = [
+        "scan",
+        str(path),
+        "--spec",
+        str(spec_path),
+        "--decisions",
+        str(dec_path),
+        "--out",
+        str(tmp_path / "o"),
+    ]
+    rc = main(argv)
+    err = capsys.readouterr().err.strip().splitlines()
+    assert rc == 2 and len(err) == 1
+    assert "case-0003" in err[0] and "'banana'" in err[0] and "benign, malignant" in err[0]
+    assert str(dec_path) in err[0]
+    assert not (tmp_path / "o").exists()
+
+
+def test_what_if_refuses_an_unknown_class_naming_row_and_classes(scan):
+    from holdfast.errors import DataError
+
+    with pytest.raises(DataError, match=r"row id 'case-0001'.*'banana'.*classes: benign, malignant"):
+        what_if(scan, {"case-0001": Decision("case-0001", "relabel", "banana", None, "")})
+
+
+def test_same_decisions_do_not_refit_twice(scan, data, monkeypatch):
+    import holdfast.learners.svm as svm_mod
+
+    frame, truth, flip = data
+    ids = frame["case"].to_numpy()
+    refits = {"n": 0}
+    real = svm_mod.SVMRefitProblem.refit_without
+
+    def counted(problem, row):
+        refits["n"] += 1
+        return real(problem, row)
+
+    monkeypatch.setattr(svm_mod.SVMRefitProblem, "refit_without", counted)
+    decisions = {ids[i]: Decision(ids[i], "relabel", truth[i], None, "") for i in flip[:4]}
+    first = what_if(scan, decisions)
+    assert refits["n"] > 0 and not first.from_cache
+    refits["n"] = 0
+    # the same changes, with a note, a confirm and another time: what changes the data is the same
+    again = dict(decisions)
+    rid = ids[flip[0]]
+    again[rid] = Decision(rid, "relabel", truth[flip[0]], "checked twice", "2026-01-02T00:00:00+00:00")
+    again[ids[flip[5]]] = Decision(ids[flip[5]], "confirm", None, None, "")
+    second = what_if(scan, again)
+    assert refits["n"] == 0 and second.from_cache
+    assert second.comparison == first.comparison
+    pd.testing.assert_frame_equal(
+        second.changed.drop(columns="decision"), first.changed.drop(columns="decision")
+    )
+    # other decisions: a new refit
+    third = what_if(scan, {**decisions, ids[flip[5]]: Decision(ids[flip[5]], "exclude", None, None, "")})
+    assert refits["n"] > 0 and not third.from_cache
+    assert third.after["m"] == first.after["m"] - 1
+
+
+def test_the_caution_names_the_self_fulfilling_loo_error_and_the_held_out_check(tmp_path, data):
+    frame, truth, flip = data
+    held = frame.assign(held=np.arange(N) % 5 == 4)
+    path = tmp_path / "held.parquet"
+    held.to_parquet(path, index=False)
+    scan = run_scan(path, spec_from_text(SPEC.replace('id = "case"', 'id = "case"\nsplit = "held"')))
+    ids = frame["case"].to_numpy()
+    w = what_if(scan, {ids[i]: Decision(ids[i], "relabel", truth[i], None, "") for i in flip})
+    assert "self-fulfilling" in w.caution and "held-out error" in w.caution
+    counts = f"held-out errors {w.before['held_out']['errors']} -> {w.after['held_out']['errors']}"
+    assert counts in w.caution
+    assert w.caution in w.text()
+
+
+def test_the_what_if_cache_keeps_the_most_recent_results(tmp_path):
+    import os
+
+    from holdfast.review.whatif import WHATIF_PREFIX, prune_whatif_cache
+
+    for n in range(11):
+        folder = tmp_path / f"{WHATIF_PREFIX}{n:02d}"
+        folder.mkdir()
+        (folder / "summary.json").write_text("{}")
+        os.utime(folder, (1_000_000 + n, 1_000_000 + n))
+    (tmp_path / "refits.sqlite").write_text("")  # the scan's own files stay
+    removed = prune_whatif_cache(tmp_path, keep=8)
+    assert sorted(f.name for f in removed) == [f"{WHATIF_PREFIX}{n:02d}" for n in range(3)]
+    left = sorted(f.name for f in tmp_path.iterdir())
+    assert left == sorted([f"{WHATIF_PREFIX}{n:02d}" for n in range(3, 11)] + ["refits.sqlite"])

@@ -120,7 +120,7 @@ def synthetic_scan(n: int, folder: Path, seed: int = 0) -> Scan:
             "flip_count": flip_count.astype(np.int64),
             "score": score,
             "rank": pd.Series(-score).rank(method="first").astype(np.int64).to_numpy(),
-            "flags": flags,
+            "flag_names": flags,
             "held_out": np.zeros(n, dtype=bool),
             "neighbour_dissent": rng.random(n),
             "neighbour_majority": y,

@@ -34,7 +34,8 @@ from textual.containers import Container
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT / "app"))
 
-from holdfast.ui.widgets.row_table import RowTable, default_columns  # noqa: E402
+from holdfast.ui.widgets.columns import default_columns  # noqa: E402
+from holdfast.ui.widgets.row_table import RowTable  # noqa: E402
 
 FIRST_PAINT_TARGET_MS = 1000.0
 KEY_TARGET_MS = 50.0
@@ -65,7 +66,7 @@ def findings_frame(n: int, seed: int = 0) -> pd.DataFrame:
             "flip_count": rng.integers(0, 6, n),
             "score": score,
             "rank": np.arange(1, n + 1),
-            "flags": np.where(rng.random(n) < 0.1, "loo_miss,bounded", "").astype(object),
+            "flag_names": np.where(rng.random(n) < 0.1, "loo_miss,bounded", "").astype(object),
             "held_out": rng.random(n) < 0.1,
             "decision": np.full(n, "", dtype=object),
         }

@@ -3,11 +3,14 @@
 from __future__ import annotations
 
 from collections.abc import Callable
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
 from textual.app import App
+
+from .inspector_kit import DataSet, write_dataset
 
 
 def findings_frame(n: int, seed: int = 0) -> pd.DataFrame:
@@ -41,7 +44,7 @@ def findings_frame(n: int, seed: int = 0) -> pd.DataFrame:
             "flip_count": rng.integers(0, 4, n),
             "score": score,
             "rank": np.arange(1, n + 1),
-            "flags": flags,
+            "flag_names": flags,
             "held_out": np.zeros(n, dtype=bool),
             "decision": np.full(n, "", dtype=object),
         }
@@ -67,3 +70,22 @@ def screen_lines(app: App) -> list[str]:
 def read_screen() -> Callable[[App], list[str]]:
     """Fixture returning ``screen_lines``."""
     return screen_lines
+
+
+@pytest.fixture(scope="module")
+def shared(tmp_path_factory: pytest.TempPathFactory) -> tuple[DataSet, Path]:
+    """One data set and one result cache for the module: the first test scans, the others hit the cache."""
+    root = tmp_path_factory.mktemp("inspector")
+    return write_dataset(root / "data"), root / "cache"
+
+
+@pytest.fixture
+def ds(shared: tuple[DataSet, Path], tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> DataSet:
+    """The shared data set copied into this test's folder (so each test has its own session file)."""
+    base, cache = shared
+    monkeypatch.setenv("HOLDFAST_CACHE_DIR", str(cache))
+    data = tmp_path / base.data.name
+    data.write_bytes(base.data.read_bytes())
+    spec_path = tmp_path / base.spec_path.name
+    spec_path.write_text(base.spec_path.read_text())
+    return DataSet(data, spec_path, base.frame)

@@ -44,25 +44,6 @@ from .inspector_kit import (
 )
 
 
-@pytest.fixture(scope="module")
-def shared(tmp_path_factory: pytest.TempPathFactory) -> tuple[DataSet, Path]:
-    """One data set and one result cache for the module: the first test scans, the others hit the cache."""
-    root = tmp_path_factory.mktemp("inspector")
-    return write_dataset(root / "data"), root / "cache"
-
-
-@pytest.fixture
-def ds(shared: tuple[DataSet, Path], tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> DataSet:
-    """The shared data set copied into this test's folder (so each test has its own session file)."""
-    base, cache = shared
-    monkeypatch.setenv("HOLDFAST_CACHE_DIR", str(cache))
-    data = tmp_path / base.data.name
-    data.write_bytes(base.data.read_bytes())
-    spec_path = tmp_path / base.spec_path.name
-    spec_path.write_text(base.spec_path.read_text())
-    return DataSet(data, spec_path, base.frame)
-
-
 def session_path(ds: DataSet) -> Path:
     return ds.data.with_name("packhouse.holdfast.db")
 
@@ -103,8 +84,8 @@ async def test_sort_filter_move_and_jump(ds: DataSet) -> None:
         rows = screen.scan.findings.rows
 
         await pilot.press("s")  # next column after score: flags, as text from A to Z
-        assert (table.sort_key, table.sort_descending) == ("flags", False)
-        expected = rows["flags"].astype(object).sort_values(kind="stable").index.tolist()
+        assert (table.sort_key, table.sort_descending) == ("flag_names", False)
+        expected = rows["flag_names"].astype(object).sort_values(kind="stable").index.tolist()
         assert table.view_positions().tolist() == expected
         await pilot.press("s")  # then flip count, largest first
         assert (table.sort_key, table.sort_descending) == ("flip_count", True)
@@ -408,7 +389,7 @@ async def test_export_decisions_and_cleaned_data_from_the_ui(ds: DataSet, tmp_pa
 
 
 async def test_report_export_is_disabled_with_a_reason_when_missing(ds: DataSet, monkeypatch) -> None:  # type: ignore[no-untyped-def]
-    import holdfast.ui.screens.inspect as inspect_module
+    import holdfast.ui.screens.inspect_work as inspect_module
 
     monkeypatch.setattr(inspect_module, "_module_exists", lambda name: name != "holdfast.output.report")
     app = make_app(ds)
@@ -597,6 +578,7 @@ async def test_what_if_shows_the_refit_with_the_decisions_applied(ds: DataSet) -
         await pilot.press("y")
         await pilot.press("w")
         await until(pilot, lambda: isinstance(app.screen, WhatIfScreen))
+        await pilot.pause()  # the pushed screen composes on the next turn of the loop
         shown = app.screen.result
         text = screen_text(app)
         # The same refit run directly on the journal's decisions gives the numbers on screen.

@@ -19,11 +19,13 @@ from rich.color import Color
 from textual.app import App, ComposeResult
 
 from holdfast.ui.textsafe import literal, safe_text
-from holdfast.ui.widgets.row_table import ColumnSpec, RowTable, default_columns, sort_order
+from holdfast.ui.widgets.columns import ColumnSpec, default_columns
+from holdfast.ui.widgets.row_model import sort_order
+from holdfast.ui.widgets.row_table import RowTable
 
 from .conftest import findings_frame, screen_lines
 
-NARROW = ["rank", "id", "label", "score", "flags", ColumnSpec("decision", width=16), "support"]
+NARROW = ["rank", "id", "label", "score", "flag_names", ColumnSpec("decision", width=16), "support"]
 SIZE = (100, 20)
 
 
@@ -416,12 +418,12 @@ def style_of(app: App, text: str) -> Any:
 
 async def test_component_classes_style_cursor_flagged_and_booleans() -> None:
     frame = findings_frame(30)
-    frame["flags"] = ""
-    frame.loc[5, "flags"] = "loo_miss"
+    frame["flag_names"] = ""
+    frame.loc[5, "flag_names"] = "loo_miss"
     frame["support"] = False
     frame.loc[6, "support"] = True
     frame["id"] = [f"crate-{i:06d}" for i in range(30)]
-    columns = ["id", "flags", ColumnSpec("support", width=9)]
+    columns = ["id", "flag_names", ColumnSpec("support", width=9)]
     app = Host(frame, columns)
     async with app.run_test(size=SIZE) as pilot:
         await pilot.pause()

@@ -25,14 +25,16 @@ def _class_values(prepared: Prepared, codes: np.ndarray) -> pd.Series:
     classes = prepared.classes
     labels = prepared.labels
     values = [classes[c] if c >= 0 else None for c in codes]
-    return pd.Series(values, dtype=labels.dtype if labels.dtype != object else object)
+    missing = bool((np.asarray(codes) < 0).any())
+    return pd.Series(values, dtype=object if missing or labels.dtype == object else labels.dtype)
 
 
 def neighbour_evidence(prepared: Prepared, k: int) -> pd.DataFrame:
     """Neighbour evidence for every training row (NaN/-1/0 for held-out rows).
 
     ``neighbour_dissent`` and ``neighbour_majority``: share of the k nearest training rows with another
-    label, and their most common label; ``neighbour_dissent_avg``: the dissent averaged over
+    label, and their most common label (a label value, as in ``label``; missing for held-out rows);
+    ``neighbour_dissent_avg``: the dissent averaged over
     ``DISSENT_SCALES`` times k neighbours (k/2, k, 2k: less noisy than one k, used by the suspicion
     score); ``twin_conflicts``: other rows within ``TWIN_TOL`` (near-identical) carrying another label.
     """
@@ -56,10 +58,37 @@ def neighbour_evidence(prepared: Prepared, k: int) -> pd.DataFrame:
         {
             "neighbour_dissent": dissent,
             "neighbour_dissent_avg": dissent_avg,
-            "neighbour_majority": majority,
+            "neighbour_majority": _class_values(prepared, majority),
             "twin_conflicts": twins,
         }
     )
+
+
+def quick_evidence(prepared: Prepared, k: int) -> pd.DataFrame:
+    """The evidence that needs no refit, over all input rows: :func:`neighbour_evidence` plus
+    ``linear_logit`` (out-of-fold logistic log-odds of the label; NaN for held-out rows)."""
+    tr = prepared.train_index
+    evidence = neighbour_evidence(prepared, k)
+    logit = np.full(len(prepared.frame), np.nan)
+    logit[tr] = linear_label_logit(prepared.X[tr], prepared.y[tr])
+    evidence["linear_logit"] = logit
+    return evidence
+
+
+def full_fit_priority(model: FittedModel, evidence: pd.DataFrame, train_index: np.ndarray) -> np.ndarray:
+    """The suspicion score of every training row with the full-fit margin in place of the LOO margin:
+    the order in which the LOO refits the support rows (most suspicious first)."""
+    ev = evidence.iloc[train_index].reset_index(drop=True)
+    frame = pd.DataFrame(
+        {
+            "loo_miss": model.prediction != model.y,
+            "loo_margin": np.asarray(model.margin, dtype=np.float64),
+            "neighbour_dissent_avg": ev["neighbour_dissent_avg"].to_numpy(),
+            "linear_logit": ev["linear_logit"].to_numpy(),
+            "held_out": np.zeros(len(model.y), dtype=bool),
+        }
+    )
+    return suspicion_score(frame)
 
 
 def _loo_margin(model: FittedModel, loo: LooResult) -> np.ndarray:
@@ -101,10 +130,23 @@ def build_rows(
     held_pred: np.ndarray,
     held_decision: np.ndarray | None,
     k: int,
+    evidence: pd.DataFrame | None = None,
+    pending: np.ndarray | None = None,
 ) -> pd.DataFrame:
-    """The per-row frame over all input rows, in input order."""
+    """The per-row frame over all input rows, in input order.
+
+    ``evidence``: :func:`quick_evidence`, when already computed. ``pending`` (provisional findings, one
+    bool per training row): support rows whose refit has not arrived; their LOO columns are missing
+    (nullable dtypes), the flags that need the refit (``loo_miss``, ``heavy_flip``) are not raised yet,
+    their score and rank use the full-fit margin, and a ``loo_pending`` column is added.
+    """
     n = len(prepared.frame)
     tr = prepared.train_index
+    if evidence is None:
+        evidence = quick_evidence(prepared, k)
+    pend = np.zeros(n, dtype=bool)
+    if pending is not None:
+        pend[tr] = pending
     held = np.flatnonzero(~prepared.train)
     pred = np.full(n, -1, dtype=np.int64)
     loo_pred = np.full(n, -1, dtype=np.int64)
@@ -133,7 +175,7 @@ def build_rows(
             "label": labels,
             "prediction": _class_values(prepared, pred),
             "loo_prediction": _class_values(prepared, loo_pred),
-            "loo_miss": loo_pred != prepared.y,
+            "loo_miss": (loo_pred != prepared.y) & ~pend,
             "support": spread(model.support, False, bool),
             "essential": spread(loo.essential, False, bool),
             "bounded": spread(model.bounded, False, bool),
@@ -145,19 +187,42 @@ def build_rows(
             "held_out": ~prepared.train,
         }
     )
-    rows = pd.concat([rows, neighbour_evidence(prepared, k)], axis=1)
-    rows["linear_logit"] = spread(linear_label_logit(prepared.X[tr], prepared.y[tr]), np.nan, float)
+    rows = pd.concat([rows, evidence.reset_index(drop=True)], axis=1)
     rows = compute_flags(rows)
     rows["score"] = suspicion_score(rows, margin_unit=margin_unit(model))
     rows["rank"] = rank_rows(rows["score"].to_numpy())
+    if pending is not None:
+        rows = _mask_pending(rows, pend)
     first = [c for c in ROW_COLUMNS if c in rows.columns]
     return rows[first + [c for c in rows.columns if c not in first]]
 
 
+def _mask_pending(rows: pd.DataFrame, pend: np.ndarray) -> pd.DataFrame:
+    """Provisional frame: the LOO columns of rows still waiting for their refit become missing."""
+    rows["loo_prediction"] = rows["loo_prediction"].astype(object).where(~pend, None)
+    rows["loo_miss"] = pd.Series(rows["loo_miss"].to_numpy(), dtype="boolean").mask(pend)
+    rows["essential"] = pd.Series(rows["essential"].to_numpy(), dtype="boolean").mask(pend)
+    rows["flip_count"] = pd.Series(rows["flip_count"].to_numpy(), dtype="Int64").mask(pend)
+    rows["loo_margin"] = rows["loo_margin"].where(~pend)
+    if "loo_exact" in rows:
+        rows["loo_exact"] = rows["loo_exact"].to_numpy(dtype=bool) & ~pend
+    rows["loo_pending"] = pend
+    return rows
+
+
 def bounds_summary(
-    prepared: Prepared, model: FittedModel, loo: LooResult, rows: pd.DataFrame, delta: float
+    prepared: Prepared,
+    model: FittedModel,
+    loo: LooResult,
+    rows: pd.DataFrame,
+    delta: float,
+    static: dict[str, Any] | None = None,
 ) -> dict[str, Any]:
-    """Bounds and estimates side by side, each with its name and published source."""
+    """Bounds and estimates side by side, each with its name and published source.
+
+    ``static``: a dict kept across calls for the same fit (the provisional findings of one scan); the
+    estimates that need no refit (xi-alpha, span) are computed once into it.
+    """
     tr = prepared.train_index
     m = len(tr)
     d = int(model.support.sum())
@@ -177,7 +242,7 @@ def bounds_summary(
         out: dict[str, Any] = {
             "loo_error": {
                 "name": "exact LOO error" if model.family == "knn" else "LOO error",
-                "value": float((loo.loo_code != y).mean()),
+                "value": float(((loo.loo_code != y) & ~_pending_of(rows, tr)).mean()),
                 "source": "Lachenbruch & Mickey 1968, Estimation of error rates in discriminant analysis, "
                 f"Technometrics 10 (leave-one-out); {loo_source}",
             }
@@ -213,9 +278,16 @@ def bounds_summary(
             "(d + LOO misses outside the support set) / m",
             "misses_outside": loo_miss_outside,
         },
+    }
+    if loo_miss_outside == 0:
+        # rows outside the support set keep the model when left out, and an SVM classifies them correctly
+        # (margin >= 1), so none is a LOO miss: the two numbers coincide
+        out["support_fraction"]["note"] = "= LOO bound (no LOO miss outside the support set)"
+        out["loo_bound"]["note"] = "= d/m: no LOO miss outside the support set"
+    out |= {
         "loo_error": {
             "name": "exact LOO error",
-            "value": float((loo.loo_code != y).mean()),
+            "value": float(((loo.loo_code != y) & ~_pending_of(rows, tr)).mean()),
             "source": "Lachenbruch & Mickey 1968, Estimation of error rates in discriminant analysis, "
             f"Technometrics 10 (leave-one-out); {loo_source}",
         },
@@ -255,7 +327,9 @@ def bounds_summary(
                     else "does not apply: the final weights do not separate the training rows"
                 ),
             }
-    if model.family == "svm" and two:
+    if static is not None and "fit_estimates" in static:
+        out.update(static["fit_estimates"])
+    elif model.family == "svm" and two:
         # two-class theorems: margin = y f(x) with y in {-1, +1}, alpha = |dual_coef_|
         xa = B.xi_alpha(model.alpha, model.margin, model.extras["kernel_r2"])
         out["xi_alpha"] = {
@@ -270,6 +344,8 @@ def bounds_summary(
         span = span_summary(model, m)
         if span is not None:
             out["span"] = span
+    if static is not None:
+        static["fit_estimates"] = {k: out[k] for k in ("xi_alpha", "span") if k in out}
     _held_bound(out, prepared, rows, delta)
     return out
 
@@ -370,6 +446,27 @@ def family_summary(model: FittedModel, m: int) -> dict[str, Any]:
     return out
 
 
+def _learner_params(params: dict[str, Any], prepared: Prepared) -> dict[str, Any]:
+    """The learner's resolved parameters for the summary, with class weights keyed by label (the learner
+    keys them by class code)."""
+    out = dict(params)
+    weights = out.get("class_weight_resolved")
+    if isinstance(weights, dict):
+        out["class_weight_resolved"] = {str(prepared.classes[int(c)]): w for c, w in weights.items()}
+    return out
+
+
+def _pending_of(rows: pd.DataFrame, tr: np.ndarray) -> np.ndarray:
+    """The training rows' ``loo_pending`` (all False in finished findings)."""
+    if "loo_pending" not in rows:
+        return np.zeros(len(tr), dtype=bool)
+    return rows["loo_pending"].to_numpy(dtype=bool)[tr]
+
+
+def _pending(pending: np.ndarray | None, m: int) -> np.ndarray:
+    return np.zeros(m, dtype=bool) if pending is None else pending
+
+
 def build_findings(
     prepared: Prepared,
     spec: Spec,
@@ -379,16 +476,31 @@ def build_findings(
     held_pred: np.ndarray,
     held_decision: np.ndarray | None,
     seconds: float,
+    evidence: pd.DataFrame | None = None,
+    pending: np.ndarray | None = None,
+    static: dict[str, Any] | None = None,
 ) -> Findings:
-    """Per-row frame and summary for one scan."""
+    """Per-row frame and summary for one scan.
+
+    ``evidence``, ``pending``: as for :func:`build_rows`; with ``pending`` the findings are provisional
+    (``summary["provisional"]``, ``loo_done``, ``loo_total``; LOO counts cover the refits done so far).
+    ``static``: as for :func:`bounds_summary` (also keeps the distance statistics of the explanation).
+    """
     rows = build_rows(
-        prepared, model, loo, held_pred=held_pred, held_decision=held_decision, k=spec.insight.k
+        prepared,
+        model,
+        loo,
+        held_pred=held_pred,
+        held_decision=held_decision,
+        k=spec.insight.k,
+        evidence=evidence,
+        pending=pending,
     )
     tr = prepared.train_index
     m = len(tr)
     y = model.y
     d = int(model.support.sum())
-    bounds = bounds_summary(prepared, model, loo, rows, spec.insight.delta)
+    bounds = bounds_summary(prepared, model, loo, rows, spec.insight.delta, static)
     tr_mask = prepared.train
     counts = np.bincount(y, minlength=len(prepared.classes))
     summary: dict[str, Any] = {
@@ -400,7 +512,7 @@ def build_findings(
         },
         "spec": spec.to_dict(),
         "spec_fingerprint": spec.fingerprint(),
-        "learner": model.params,
+        "learner": _learner_params(model.params, prepared),
         "classes": [str(c) for c in prepared.classes],
         "class_counts": {str(c): int(n) for c, n in zip(prepared.classes, counts, strict=True)},
         "m": m,
@@ -409,7 +521,7 @@ def build_findings(
         "free": int(d - model.bounded.sum()),
         "essential": int(loo.essential.sum()),
         "training_errors": int((model.prediction != y).sum()),
-        "loo_errors": int((loo.loo_code != y).sum()),
+        "loo_errors": int(((loo.loo_code != y) & ~_pending(pending, m)).sum()),
         "loo_exact": bool(model.loo_exact),
         "loo_exact_rows": int(rows["loo_exact"].to_numpy(dtype=bool)[tr_mask].sum()),
         "family": family_summary(model, m),
@@ -425,5 +537,12 @@ def build_findings(
         n_h = int(held.sum())
         e_h = int(rows.loc[held, "loo_miss"].sum())
         summary["held_out"] = {"n": n_h, "errors": e_h, "error_rate": e_h / n_h}
-    summary["explanation"] = explain(rows, prepared.X[tr], model.params)
+    distances = None if static is None else static.get("distances")
+    summary["explanation"] = explain(rows, prepared.X[tr], model.params, distances=distances)
+    if static is not None:
+        static["distances"] = summary["explanation"]["distances"]
+    if pending is not None:
+        summary["provisional"] = True
+        summary["loo_total"] = len(model.loo_candidates())
+        summary["loo_done"] = summary["loo_total"] - int(pending.sum())
     return Findings(rows=rows, summary=summary, classes=[str(c) for c in prepared.classes])

@@ -44,7 +44,7 @@ ROW_COLUMNS: dict[str, str] = {
         " (holdfast.insight.score)"
     ),
     "rank": "1 = most suspicious training row; held-out rows rank after all training rows",
-    "flags": "comma-separated names of the flags raised for this row",
+    "flag_names": "comma-separated names of the flags raised for this row",
     "held_out": "row is in the held-out split: never trained on",
 }
 

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import hashlib
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -24,6 +24,9 @@ from holdfast.learners.base import FittedModel, RefitOutcome, RefitProblem
 
 #: progress(done, total, eta_seconds or None)
 Progress = Callable[[int, int, float | None], None]
+#: on_update(refits done so far, keyed by training row): called before the first refit and after each
+#: batch of results, on the thread that runs the LOO; the mapping is live (read it, do not keep it)
+Update = Callable[[Mapping[int, RefitOutcome]], None]
 
 
 @dataclass
@@ -64,11 +67,14 @@ def exact_loo(
     progress: Progress | None = None,
     should_cancel: Callable[[], bool] | None = None,
     essential_tol: float = 1e-4,
+    priority: np.ndarray | None = None,
+    on_update: Update | None = None,
 ) -> LooResult:
     """Exact LOO predictions, flip counts and essential flags for all training rows.
 
-    Refits only ``model.loo_candidates()``; finished refits go to ``store`` as they arrive so an
-    interrupted run resumes. Raises :class:`holdfast.errors.Cancelled` when cancelled.
+    Refits only ``model.loo_candidates()``, highest ``priority`` (one value per training row) first when
+    given, else in row order; finished refits go to ``store`` as they arrive so an interrupted run
+    resumes, and to ``on_update``. Raises :class:`holdfast.errors.Cancelled` when cancelled.
     """
     m = model.y.shape[0]
     candidates = model.loo_candidates()
@@ -77,6 +83,9 @@ def exact_loo(
         done = {r: o for r, o in store.load().items() if r < m}
     resumed = len(done)
     todo = np.array([r for r in candidates if int(r) not in done], dtype=np.int64)
+    if priority is not None and len(todo):
+        key = np.nan_to_num(np.asarray(priority, dtype=np.float64)[todo], nan=-np.inf)
+        todo = todo[np.argsort(-key, kind="stable")]
     total = len(candidates)
     start = time.monotonic()
 
@@ -91,9 +100,13 @@ def exact_loo(
             left = total - len(done)
             eta = elapsed / new * left if new > 0 else None
             progress(len(done), total, eta)
+        if on_update is not None:
+            on_update(done)
 
     if progress is not None:
         progress(len(done), total, None)
+    if on_update is not None:
+        on_update(done)
     run_refits(
         problem,
         todo,
@@ -104,8 +117,25 @@ def exact_loo(
         should_cancel=should_cancel,
     )
 
+    loo, _ = assemble_loo(model, done, essential_tol=essential_tol)
+    loo.refits = total - resumed
+    loo.resumed = resumed
+    return loo
+
+
+def assemble_loo(
+    model: FittedModel, done: Mapping[int, RefitOutcome], *, essential_tol: float = 1e-4
+) -> tuple[LooResult, np.ndarray]:
+    """The LOO result from the refits in ``done``, and the mask of candidates still without a refit.
+
+    Rows outside ``model.loo_candidates()`` take their training values (exact). A pending candidate keeps
+    its training prediction and margin, flip count 0 and not essential: placeholders, to be masked by
+    the caller (the provisional findings show them as missing).
+    """
+    m = model.y.shape[0]
     direct = model.direct_loo
     max_change = np.full(m, np.nan)
+    pending = np.zeros(m, dtype=bool)
     if direct is None:
         loo_code = model.prediction.copy()
         flip_count = np.zeros(m, dtype=np.int64)
@@ -113,15 +143,18 @@ def exact_loo(
         loo_margin = np.asarray(model.margin, dtype=np.float64).copy()
         exact = np.full(m, bool(model.loo_exact))
         flipped: dict[int, np.ndarray] = {}
-    else:
+    else:  # the learner's own LOO results, overwritten below where a refit exists
         loo_code = np.asarray(direct.code, dtype=np.int64).copy()
         flip_count = np.asarray(direct.flip_count, dtype=np.int64).copy()
         essential = np.asarray(direct.essential, dtype=bool).copy()
         loo_margin = np.asarray(direct.margin, dtype=np.float64).copy()
         exact = np.asarray(direct.exact, dtype=bool).copy()
         flipped = {int(r): v for r, v in direct.flipped.items()}
-    for r in candidates:
-        o = done[int(r)]
+    for r in model.loo_candidates():
+        o = done.get(int(r))
+        if o is None:
+            pending[r] = True
+            continue
         exact[r] = True
         flipped.pop(int(r), None)
         loo_code[r] = o.loo_code
@@ -131,7 +164,7 @@ def exact_loo(
         essential[r] = o.max_change > essential_tol or len(o.flipped) > 0 or o.loo_code != model.prediction[r]
         if len(o.flipped):
             flipped[int(r)] = o.flipped
-    return LooResult(
+    result = LooResult(
         loo_code=loo_code,
         flip_count=flip_count,
         essential=essential,
@@ -139,6 +172,5 @@ def exact_loo(
         flipped=flipped,
         loo_margin=loo_margin,
         exact=exact,
-        refits=total - resumed,
-        resumed=resumed,
     )
+    return result, pending

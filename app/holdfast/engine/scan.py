@@ -8,9 +8,10 @@ from __future__ import annotations
 
 import json
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -20,12 +21,12 @@ from holdfast.atomic import atomic_write_parquet
 from holdfast.data.load import fingerprint_file, read_table
 from holdfast.data.prepare import Prepared, prepare
 from holdfast.data.spec import Spec
-from holdfast.engine.build import build_findings
+from holdfast.engine.build import build_findings, full_fit_priority, quick_evidence
 from holdfast.engine.cache import RefitStore, cache_dir
 from holdfast.engine.findings import Findings
-from holdfast.engine.loo import LooResult, Progress, exact_loo, support_key
+from holdfast.engine.loo import LooResult, Progress, assemble_loo, exact_loo, support_key
 from holdfast.learners import make_learner
-from holdfast.learners.base import FittedModel
+from holdfast.learners.base import FittedModel, RefitOutcome
 
 
 @dataclass
@@ -42,6 +43,54 @@ class Scan:
     from_cache: bool = False
 
 
+#: on_partial(provisional findings): see :func:`analyse`
+Partial = Callable[[Findings], None]
+#: shortest time between two provisional findings (seconds) ...
+PARTIAL_INTERVAL = 1.0
+#: ... and at most about this share of the scan's time goes into building them (the interval grows with
+#: the time one build takes, so large data sets do not spend their LOO time on provisional frames; the
+#: first build, which also computes the estimates that need no refit, does not count)
+PARTIAL_SHARE = 0.2
+
+
+class _PartialFeed:
+    """Builds provisional findings from the refits done so far and hands them to ``on_partial``:
+    at once, then at most every ``PARTIAL_INTERVAL`` seconds, and once when every refit is in."""
+
+    def __init__(
+        self,
+        build: Callable[[dict[int, RefitOutcome]], Findings],
+        total: int,
+        on_partial: Partial,
+        clock: Callable[[], float] = time.monotonic,
+    ) -> None:
+        self.build = build
+        self.total = total
+        self.on_partial = on_partial
+        self.clock = clock
+        self.last: float | None = None
+        self.cost = 0.0
+        self.sent_done = -1
+
+    def __call__(self, done: Mapping[int, RefitOutcome]) -> None:
+        now = self.clock()
+        n = len(done)
+        complete = n >= self.total
+        if self.last is not None and not complete:
+            wait = max(PARTIAL_INTERVAL, self.cost / PARTIAL_SHARE)
+            if now - self.last < wait:
+                return
+        if complete and self.sent_done == n:
+            return
+        first = self.last is None
+        findings = self.build(dict(done))
+        self.sent_done = n
+        self.last = self.clock()
+        if not first:
+            self.cost = self.last - now
+        self.on_partial(findings)
+
+
 def analyse(
     prepared: Prepared,
     spec: Spec,
@@ -50,14 +99,49 @@ def analyse(
     should_cancel: Callable[[], bool] | None = None,
     store: RefitStore | None = None,
     store_factory: Callable[[str], RefitStore] | None = None,
+    on_partial: Partial | None = None,
 ) -> tuple[Findings, dict[int, np.ndarray], FittedModel]:
-    """Fit, run exact LOO over the support rows, gather the evidence; return findings and flips."""
+    """Fit, run exact LOO over the support rows, gather the evidence; return findings and flips.
+
+    The support rows are refitted most suspicious first by their full-fit evidence
+    (:func:`holdfast.engine.build.full_fit_priority`). ``on_partial`` receives provisional findings
+    (``summary["provisional"]`` True, ``loo_done``/``loo_total``, an extra ``loo_pending`` column; the
+    LOO columns of pending rows are missing and their score uses the full-fit margin): first as soon as
+    the fit and the evidence that needs no refit are ready (before any refit), then as refits arrive
+    (throttled, about once a second at most) and once when all are in. Each call gets a new object; it
+    runs on the thread running the LOO, so it should return quickly. The returned findings do not depend
+    on ``on_partial``.
+    """
     start = time.monotonic()
     train_idx = prepared.train_index
     X_train = prepared.X[train_idx]
     y_train = prepared.y[train_idx]
     learner = make_learner(spec.learner)
     model = learner.fit(X_train, y_train)
+    held_idx = np.flatnonzero(~prepared.train)
+    held_decision = learner.decision(prepared.X[held_idx]) if len(held_idx) else None
+    held_pred = learner.predict(prepared.X[held_idx]) if len(held_idx) else np.empty(0, dtype=np.int64)
+    evidence = quick_evidence(prepared, spec.insight.k)
+    static: dict[str, Any] = {}
+
+    def build(done: dict[int, RefitOutcome]) -> Findings:
+        partial, pending = assemble_loo(model, done)
+        return build_findings(
+            prepared,
+            spec,
+            model,
+            partial,
+            held_pred=held_pred,
+            held_decision=held_decision,
+            seconds=time.monotonic() - start,
+            evidence=evidence,
+            pending=pending,
+            static=static,
+        )
+
+    feed = None
+    if on_partial is not None:
+        feed = _PartialFeed(build, len(model.loo_candidates()), on_partial)
     if store is None and store_factory is not None:
         store = store_factory(support_key(model))
     try:
@@ -70,13 +154,12 @@ def analyse(
             store=store,
             progress=progress,
             should_cancel=should_cancel,
+            priority=full_fit_priority(model, evidence, train_idx),
+            on_update=feed,
         )
     finally:
         if store is not None:
             store.close()
-    held_idx = np.flatnonzero(~prepared.train)
-    held_decision = learner.decision(prepared.X[held_idx]) if len(held_idx) else None
-    held_pred = learner.predict(prepared.X[held_idx]) if len(held_idx) else np.empty(0, dtype=np.int64)
     findings = build_findings(
         prepared,
         spec,
@@ -85,6 +168,8 @@ def analyse(
         held_pred=held_pred,
         held_decision=held_decision,
         seconds=time.monotonic() - start,
+        evidence=evidence,
+        static=static,
     )
     flips = {int(train_idx[r]): train_idx[v] for r, v in loo.flipped.items()}
     return findings, flips, model
@@ -127,9 +212,12 @@ def run_scan(
     use_cache: bool | None = None,
     cache_root: Path | None = None,
     frame: pd.DataFrame | None = None,
+    on_partial: Partial | None = None,
 ) -> Scan:
     """Scan a data file with a spec. Reuses a finished scan of the same data + spec from the cache and
-    resumes an interrupted one. ``frame`` may pass the already-read table."""
+    resumes an interrupted one (refits kept from a cancelled scan are in the first provisional findings).
+    ``frame`` may pass the already-read table; ``on_partial`` receives provisional findings during the
+    LOO (see :func:`analyse`; not called when the finished scan comes from the cache)."""
     path = Path(data_path)
     if frame is None:
         frame = read_table(path)
@@ -145,10 +233,24 @@ def run_scan(
                 progress(d, d, 0.0)
             return cached
     factory = (lambda key: RefitStore(folder / "refits.sqlite", key)) if folder is not None else None
+    data_info = {"path": str(path), "fingerprint": data_fp}
+    forward = None
+    if on_partial is not None:
+        sink = on_partial
+
+        def forward(partial: Findings) -> None:
+            partial.summary["data"].update(data_info)
+            sink(partial)
+
     findings, flips, model = analyse(
-        prepared, spec, progress=progress, should_cancel=should_cancel, store_factory=factory
+        prepared,
+        spec,
+        progress=progress,
+        should_cancel=should_cancel,
+        store_factory=factory,
+        on_partial=forward,
     )
-    findings.summary["data"].update({"path": str(path), "fingerprint": data_fp})
+    findings.summary["data"].update(data_info)
     if folder is not None:
         atomic_write_parquet(_flips_frame(flips), folder / "flips.parquet")
         findings.write(folder)

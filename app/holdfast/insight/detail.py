@@ -190,7 +190,11 @@ class DetailContext:
             "neighbour_dissent": _column(rows, "neighbour_dissent", np.nan, float),
             "twin_conflicts": _column(rows, "twin_conflicts", 0, np.int64),
             "held_out": _column(rows, "held_out", False, bool),
-            "flags": rows["flags"].fillna("").to_numpy(dtype=object) if "flags" in rows else np.full(n, ""),
+            "flag_names": (
+                rows["flag_names"].fillna("").to_numpy(dtype=object)
+                if "flag_names" in rows
+                else np.full(n, "")
+            ),
         }
         return cls(
             scan=scan,
@@ -371,7 +375,7 @@ class DetailContext:
             raise IndexError(f"row position {position} is outside 0..{n - 1}")
         k = int(self.scan.spec.insight.k if k is None else k)
         a = self.row_arrays
-        names = [s for s in str(a["flags"][position]).split(",") if s]
+        names = [s for s in str(a["flag_names"][position]).split(",") if s]
         features, n_c = self._features(position)
         return RowDetail(
             position=position,

@@ -40,16 +40,32 @@ WIDE_EXPONENT = 0.01
 #: Share of d that is bounded, and share of m that is bounded-but-correct, for the "C too small" hint.
 C_SMALL_BOUNDED_SHARE = 0.9
 C_SMALL_INSIDE_SHARE = 0.25
-#: Smallest class share below which class imbalance is reported as a hint (common practice: 1 in 5).
-IMBALANCE_SHARE = 0.2
+#: Class imbalance is reported when the smallest class holds less than this share of an even split, 1/k
+#: for k classes: below 20% of the rows for two classes, 4% for ten (rule of thumb, our own; two classes
+#: match the common-practice 1 in 5).
+IMBALANCE_OF_EVEN = 0.4
 #: Flags that are evidence about the label (not about the row's place in the model).
 LABEL_FLAGS = ("loo_miss", "wrong_side", "neighbour_dissent", "twin_conflict")
 #: Rows sampled for the distance statistics (deterministic sample, seed 0).
 DISTANCE_SAMPLE = 1000
 
 
-def _pct(part: float, whole: float) -> str:
-    return f"{100.0 * part / whole:.0f}%" if whole else "0%"
+def percent(part: float, whole: float) -> str:
+    """``part`` as a share of ``whole`` in percent, never rounded to 0% or 100% when it is neither:
+    1 of 231 is "0.4%", 1 of 5,000 "<0.1%", 230 of 231 "99.6%"."""
+    if not whole:
+        return "0%"
+    p = 100.0 * part / whole
+    if part == 0 or part == whole or 1.0 <= p <= 99.0:
+        return f"{p:.0f}%"
+    if p < 0.05:
+        return "<0.1%"
+    if p > 99.95:
+        return ">99.9%"
+    return f"{p:.1f}%"
+
+
+_pct = percent
 
 
 def _flag(rows: pd.DataFrame, name: str) -> np.ndarray:
@@ -100,7 +116,13 @@ def composition(rows: pd.DataFrame) -> dict[str, int]:
     }
 
 
-def explain(rows: pd.DataFrame, X_train: np.ndarray, params: Mapping[str, Any]) -> dict[str, Any]:
+def explain(
+    rows: pd.DataFrame,
+    X_train: np.ndarray,
+    params: Mapping[str, Any],
+    *,
+    distances: dict[str, float] | None = None,
+) -> dict[str, Any]:
     """The ``explanation`` object of the summary.
 
     Parameters
@@ -113,6 +135,8 @@ def explain(rows: pd.DataFrame, X_train: np.ndarray, params: Mapping[str, Any]) 
         The prepared matrix of the training rows (for the distance statistics of the hints).
     params : mapping
         The learner's resolved parameters (family, kernel, C, gamma as a number).
+    distances : dict, optional
+        :func:`distance_stats` of ``X_train`` when already computed.
 
     Returns
     -------
@@ -152,10 +176,13 @@ def explain(rows: pd.DataFrame, X_train: np.ndarray, params: Mapping[str, Any]) 
         "counts": {str(c): int(n) for c, n in counts.sort_index().items()},
         "support_counts": {str(c): int(sup_counts.get(c, 0)) for c in counts.sort_index().index},
         "smallest_share": float(counts.min() / m) if m else 0.0,
+        "even_share": 1.0 / len(counts) if len(counts) else 1.0,
         "ratio_largest_to_smallest": float(counts.max() / counts.min()) if len(counts) else 1.0,
     }
 
-    dist = distance_stats(X_train) if m >= 2 else {}
+    dist = distances
+    if dist is None:
+        dist = distance_stats(X_train) if m >= 2 else {}
     wrong = (tr["prediction"].astype(object) != tr["label"].astype(object)).to_numpy()
     bounded_wrong = tr["bounded"].to_numpy(dtype=bool) & wrong
     context = {
@@ -196,7 +223,7 @@ def explain_scan(scan: ScanView) -> dict[str, Any]:
 # ---------------------------------------------------------------------------------------------- hints
 def _hints(c: dict[str, Any]) -> list[dict[str, Any]]:
     out: list[dict[str, Any]] = []
-    for rule in (_hint_kernel, _hint_c_small, _hint_mislabel, _hint_twins, _hint_imbalance):
+    for rule in (_hint_kernel, _hint_c_small, _hint_mislabel, _hint_twins, _hint_imbalance, _hint_multiclass):
         hint = rule(c)
         if hint is not None:
             out.append(hint)
@@ -311,11 +338,20 @@ def _hint_mislabel(c: dict[str, Any]) -> dict[str, Any] | None:
     if _c_small_signature(c):
         return None  # C too small (or a too wide kernel) explains the bounded rows better
     dissent = c["dissent_bm"]
+    if dissent:
+        one = dissent == 1
+        has, its = ("1 of them also has", "its") if one else (f"{dissent} of them also have", "their")
+        nb = (
+            f" {has} most of {its} nearest neighbours carrying another label: a sign of a wrong label "
+            f"where the classes are otherwise well separated; but where the classes overlap, or beside a "
+            f"much larger class, correctly labelled rows have such neighbours too. Look at those first; "
+            f"it is not a verdict."
+        )
+    else:
+        nb = " None of them has most of its nearest neighbours carrying another label."
     text = (
         f"{bm} of the {d} support rows ({_pct(bm, d)}) are at the limit C and misclassified by the model "
-        f"trained on all rows: the usual signature of mislabelled rows or of overlapping classes. "
-        f"{dissent} of them also have most of their nearest neighbours carrying another label, which points "
-        f"to the label rather than to the model: look at those first."
+        f"trained on all rows: the usual signature of mislabelled rows or of overlapping classes.{nb}"
     )
     return {
         "kind": "bounded_misclassified",
@@ -339,15 +375,17 @@ def _hint_twins(c: dict[str, Any]) -> dict[str, Any] | None:
 def _hint_imbalance(c: dict[str, Any]) -> dict[str, Any] | None:
     cls = c["classes"]
     m = c["m"]
-    if cls["smallest_share"] >= IMBALANCE_SHARE or not m:
+    if cls["smallest_share"] >= IMBALANCE_OF_EVEN * cls["even_share"] or not m:
         return None
     counts: pd.Series = c["counts"]
     small = str(counts.idxmin())
     n_small = int(counts.min())
     sup_small = int(c["sup_counts"].get(small, 0))
     d = c["d"]
+    k = len(counts)
+    even = f"an even split would give each of the {k} classes {_pct(1, k)}"
     text = (
-        f"The classes are imbalanced: '{small}' has {n_small} of {m} rows ({_pct(n_small, m)}) but "
+        f"The classes are imbalanced ({even}): '{small}' has {n_small} of {m} rows ({_pct(n_small, m)}) but "
         f"{sup_small} of the {d} support rows ({_pct(sup_small, d)}). Errors on the small class weigh little "
         f'in the error rate; class_weight = "balanced" gives its rows a larger C.'
     )
@@ -356,3 +394,17 @@ def _hint_imbalance(c: dict[str, Any]) -> dict[str, Any] | None:
         "text": text,
         "evidence": {"class": small, "rows": n_small, "support_rows": sup_small},
     }
+
+
+def _hint_multiclass(c: dict[str, Any]) -> dict[str, Any] | None:
+    """Three or more classes: why the xi-alpha and span estimates are not in the bounds."""
+    k = len(c["counts"])
+    if c["params"].get("family") != "svm" or k < 3:
+        return None
+    text = (
+        f"No xi-alpha or span estimate: both are stated for a two-class SVM (Joachims 2000; Vapnik & "
+        f"Chapelle 2000), and with {k} classes the model is {k * (k - 1) // 2} two-class SVMs (one per pair "
+        f"of classes) voting, with no single margin or dual weight per row for them to use. The exact LOO "
+        f"error and the other bounds hold for any number of classes."
+    )
+    return {"kind": "multiclass_estimates", "text": text, "evidence": {"classes": k}}

@@ -1,6 +1,6 @@
 """Flags: named pieces of evidence that a training row deserves a look. Evidence, not verdicts.
 
-Each flag is a boolean column ``flag_<name>`` of the per-row frame; ``flags`` joins the names raised, in
+Each flag is a boolean column ``flag_<name>`` of the per-row frame; ``flag_names`` joins the names raised, in
 the order of ``FLAG_REASONS``. Held-out rows are never trained on and get no flags.
 
 ========================  =========================================================================
@@ -24,7 +24,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-#: flag name -> short reason the faces show
+#: flag name -> short reason the faces show (never "names": ``flag_names`` is the text column)
 FLAG_REASONS: dict[str, str] = {
     "loo_miss": "the model trained without this row predicts another class",
     "wrong_side": "the model trained on all rows predicts another class",
@@ -55,7 +55,7 @@ def _column(rows: pd.DataFrame, name: str, fill: float) -> np.ndarray:
 
 
 def compute_flags(rows: pd.DataFrame) -> pd.DataFrame:
-    """Return a copy of the per-row frame with ``flag_<name>`` columns and the ``flags`` text column.
+    """Return a copy of the per-row frame with ``flag_<name>`` columns and the ``flag_names`` text column.
 
     Needs the columns ``held_out``, ``loo_miss``, ``prediction``, ``label``, ``bounded`` and
     ``flip_count``; ``neighbour_dissent`` and ``twin_conflicts`` count as 0 where missing.
@@ -70,7 +70,7 @@ def compute_flags(rows: pd.DataFrame) -> pd.DataFrame:
     out["flag_heavy_flip"] = (rows["flip_count"].to_numpy() >= HEAVY_FLIP_MIN) & train
     names = list(FLAG_REASONS)
     matrix = np.column_stack([out[f"flag_{n}"].to_numpy(dtype=bool) for n in names])
-    out["flags"] = [",".join(n for n, on in zip(names, r, strict=True) if on) for r in matrix]
+    out["flag_names"] = [",".join(n for n, on in zip(names, r, strict=True) if on) for r in matrix]
     return out
 
 

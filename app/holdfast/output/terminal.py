@@ -42,13 +42,19 @@ def summary_text(summary: dict[str, Any]) -> str:
         ("training errors", f"{summary['training_errors']}"),
         ("LOO errors", f"{loo}  ({kind}; error rate {loo / m:.4f})" if m else f"{loo}  ({kind})"),
     ]
+    same = same_support_and_loo_bound(b)
     keys = ("support_fraction", "loo_bound", "xi_alpha", "span", "compression", "compression_condensed")
     for key in (*keys, "novikoff", "test_set"):
         if key in b:
             item = b[key]
+            name, note = item["name"], item.get("note", "")
+            if same and key == "loo_bound":
+                continue
+            if same and key == "support_fraction":
+                name, note = f"{name} = {b['loo_bound']['name']}", "no LOO miss outside the support set"
             value = item.get("value")
             shown = "n/a" if value is None else (f"{value:.1f}" if key == "novikoff" else f"{value:.4f}")
-            pairs.append((item["name"], f"{shown}   {item.get('note', '')}".rstrip()))
+            pairs.append((name, f"{shown}   {note}".rstrip()))
     if held:
         pairs.append(("held-out errors", f"{held['errors']} of {held['n']}  ({held['error_rate']:.4f})"))
     flags = {k: v for k, v in (summary.get("flags") or {}).items() if v}
@@ -59,6 +65,13 @@ def summary_text(summary: dict[str, Any]) -> str:
     if family.get("name", "svm") == "svm":  # the composition of d is the SVM's (bounded / free)
         lines += explanation_lines(summary.get("explanation"))
     return "\n".join(lines)
+
+
+def same_support_and_loo_bound(bounds: dict[str, Any]) -> bool:
+    """True when the LOO bound equals d/m (no LOO miss outside the support set: always for an SVM), so
+    the faces show them as one line with both names."""
+    lb = bounds.get("loo_bound")
+    return bool(lb) and "support_fraction" in bounds and lb.get("misses_outside") == 0
 
 
 def explanation_lines(explanation: Any) -> list[str]:
@@ -104,7 +117,7 @@ def top_rows_text(rows: pd.DataFrame, n: int = 10) -> str:
                 _cell(r.label),
                 _cell(r.loo_prediction),
                 "" if np.isnan(score) else f"{score:.3f}",
-                safe_text(r.flags or ""),
+                safe_text(r.flag_names or ""),
             )
         )
     widths = [max(len(row[i]) for row in table) for i in range(len(table[0]) - 1)]

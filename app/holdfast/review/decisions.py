@@ -3,7 +3,7 @@
 Decisions table columns (``DECISION_COLUMNS``), one row per row that carries a decision or a note:
 ``id`` (text), ``old_label`` (the label in the data, as text), ``new_label`` (text, relabels only),
 ``decision`` (relabel, confirm, exclude, defer; ``clear`` = no decision, the row only carries a note),
-``note``, ``score`` (suspicion score from the findings), ``flags`` (comma-separated), ``time`` (ISO-8601
+``note``, ``score`` (suspicion score from the findings), ``flag_names`` (comma-separated), ``time`` (ISO-8601
 UTC of the row's last change). Missing values are empty (null in Parquet, empty cell in CSV).
 """
 
@@ -19,6 +19,7 @@ from holdfast.data.prepare import row_ids
 from holdfast.errors import DataError, UserError
 from holdfast.review.events import DECISIONS, Decision
 from holdfast.review.journal import Journal
+from holdfast.textsafe import csv_cell_back
 
 DECISION_COLUMNS: tuple[str, ...] = (
     "id",
@@ -27,7 +28,7 @@ DECISION_COLUMNS: tuple[str, ...] = (
     "decision",
     "note",
     "score",
-    "flags",
+    "flag_names",
     "time",
 )
 #: Columns a decisions file must have to be read back (the others are filled with empty values).
@@ -39,12 +40,12 @@ FORMATS = (".parquet", ".csv")
 def decisions_frame(journal: Journal, rows: pd.DataFrame) -> pd.DataFrame:
     """The decisions table of ``journal`` joined with the findings per-row frame ``rows``.
 
-    ``rows`` needs the columns ``id``, ``label``, ``score`` and ``flags`` (see holdfast.engine.findings).
+    ``rows`` needs the columns ``id``, ``label``, ``score`` and ``flag_names`` (see holdfast.engine.findings).
     Rows of
     the journal whose id is not in ``rows`` still appear, with empty ``old_label``, ``score`` and ``flags``.
     Output order: the order of ``rows`` first, then unmatched ids in the order they were last changed.
     """
-    missing = [c for c in ("id", "label", "score", "flags") if c not in rows.columns]
+    missing = [c for c in ("id", "label", "score", "flag_names") if c not in rows.columns]
     if missing:
         raise ValueError(f"findings frame lacks column(s) {', '.join(missing)}")
     current = journal.current(include_notes_only=True)
@@ -53,7 +54,7 @@ def decisions_frame(journal: Journal, rows: pd.DataFrame) -> pd.DataFrame:
     records = []
     labels = rows["label"].tolist()
     scores = rows["score"].tolist()
-    flags = rows["flags"].tolist()
+    flags = rows["flag_names"].tolist()
     for rid in sorted(current, key=position.__getitem__):
         d = current[rid]
         n = lookup.get(rid)
@@ -65,7 +66,7 @@ def decisions_frame(journal: Journal, rows: pd.DataFrame) -> pd.DataFrame:
                 "decision": d.decision,
                 "note": d.note,
                 "score": np.nan if n is None else _float(scores[n]),
-                "flags": None if n is None else _text(flags[n]),
+                "flag_names": None if n is None else _text(flags[n]),
                 "time": d.time,
             }
         )
@@ -88,6 +89,8 @@ def read_decisions(path: str | Path) -> pd.DataFrame:
             frame = pd.read_parquet(source)
         else:
             frame = pd.read_csv(source, dtype=str, keep_default_na=False)
+            frame = frame.map(csv_cell_back)  # written by csv_cell: formula guards removed
+            frame.columns = [csv_cell_back(c) for c in frame.columns]
     except Exception as exc:  # pyarrow, pandas and OS errors alike: the file cannot be read
         raise DataError(f"{source}: cannot read decisions file ({type(exc).__name__}: {exc})") from exc
     for column in REQUIRED_COLUMNS:
@@ -121,6 +124,37 @@ def _validate(frame: pd.DataFrame, source: Path) -> None:
     dup = frame["id"][frame["id"].duplicated()]
     if len(dup):
         raise DataError(f"{source}: row id '{dup.iloc[0]}' appears more than once")
+
+
+#: classes listed in the message about a relabel to an unknown class
+LIST_CLASSES = 12
+
+
+def check_relabels(
+    decisions: Mapping[str, Decision] | pd.DataFrame, labels: pd.Series, *, label_column: str, source: str
+) -> None:
+    """Refuse a relabel to a value that is not a class of the label column (DataError naming the row id,
+    the new label and the classes). ``labels`` is the data's label column; ``source`` names the decisions."""
+    table = decisions_dict(decisions) if isinstance(decisions, pd.DataFrame) else decisions
+    values = pd.unique(labels.dropna())
+    texts = {str(v) for v in values}
+    caster = _LabelCaster(labels, label_column)
+    for rid, d in table.items():
+        if d.decision != "relabel" or d.new_label is None or d.new_label in texts:
+            continue
+        try:
+            known = caster(d.new_label) in set(values.tolist())
+        except (DataError, TypeError):
+            known = False
+        if not known:
+            shown = sorted(texts)
+            listed = ", ".join(shown[:LIST_CLASSES]) + (
+                f" and {len(shown) - LIST_CLASSES} more" if len(shown) > LIST_CLASSES else ""
+            )
+            raise DataError(
+                f"{source}: row id '{rid}' is relabelled to '{d.new_label}', which is not a class of label "
+                f"column '{label_column}' (classes: {listed})"
+            )
 
 
 def apply_decisions(

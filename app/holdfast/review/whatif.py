@@ -9,7 +9,10 @@ changes the held-out data (its error and the test-set bound) but the row is neve
 
 from __future__ import annotations
 
+import contextlib
+import hashlib
 import json
+import os
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -20,13 +23,25 @@ import pandas as pd
 
 from holdfast.atomic import atomic_write_bytes, atomic_write_parquet
 from holdfast.data.prepare import prepare, row_ids
+from holdfast.engine.cache import cache_dir
 from holdfast.engine.findings import Findings, to_jsonable
-from holdfast.review.decisions import apply_decisions, decisions_dict
+from holdfast.review.decisions import apply_decisions, check_relabels, decisions_dict
 from holdfast.review.events import Decision
 
 if TYPE_CHECKING:
     from holdfast.engine.loo import Progress
     from holdfast.engine.scan import Scan
+
+#: what the what-if screen and the report say beside the comparison (see :attr:`WhatIf.caution`)
+WHATIF_CAUTION = (
+    "The LOO error after the decisions is partly self-fulfilling: each relabelled row is now judged against "
+    "the label the decision gave it, by models trained on the other edited labels. The held-out error "
+    "(rows never trained on) is the honest check."
+)
+#: the what-if cache: after-findings of each set of decisions, in the scan's cache folder; the
+#: ``WHATIF_KEEP`` most recently written or read are kept
+WHATIF_PREFIX = "whatif-"
+WHATIF_KEEP = 8
 
 #: summary counts compared before/after: (summary key, label)
 COUNTS: tuple[tuple[str, str], ...] = (
@@ -85,6 +100,20 @@ class WhatIf:
     held_out_decisions: int = 0
     notes: list[str] = field(default_factory=list)
     findings: Findings | None = None
+    #: True when the after-findings came from the what-if cache (no refit)
+    from_cache: bool = False
+
+    @property
+    def caution(self) -> str:
+        """:data:`WHATIF_CAUTION`, with this comparison's LOO and held-out error counts."""
+        loo = f"LOO errors {_fmt(self.before.get('loo_errors'))} -> {_fmt(self.after.get('loo_errors'))}"
+        hb, ha = self.before.get("held_out"), self.after.get("held_out")
+        if hb and ha:
+            return f"{WHATIF_CAUTION} Here: {loo}; held-out errors {hb['errors']} -> {ha['errors']}."
+        return (
+            f"{WHATIF_CAUTION} Here: {loo}; this data set has no held-out rows (a split column in the spec, "
+            f"data.split, sets some aside) so nothing checks the decisions independently."
+        )
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready dict (``whatif.json``)."""
@@ -110,6 +139,7 @@ class WhatIf:
             lines.append(f"{name:<22}{_fmt(b):>12}{_fmt(a):>12}")
         lines.append(f"rows whose status changed: {len(self.changed)}")
         lines.extend(self.notes)
+        lines.append(self.caution)
         return "\n".join(lines)
 
 
@@ -139,9 +169,18 @@ def compare(before: dict[str, Any], after: dict[str, Any]) -> list[tuple[str, An
             )
         )
     bb, ba = before.get("bounds", {}), after.get("bounds", {})
+    # d/m and the LOO bound are one number when no LOO miss lies outside the support set (always for an
+    # SVM): one row with both names, as in the terminal summary and the report
+    same = all(
+        b.get("loo_bound", {}).get("misses_outside") == 0 and "support_fraction" in b for b in (bb, ba)
+    )
     for key in BOUND_KEYS:
+        if same and key == "loo_bound":
+            continue
         if key in bb or key in ba:
             name = (bb.get(key) or ba.get(key))["name"]
+            if same and key == "support_fraction":
+                name = f"{name} = {(bb.get('loo_bound') or ba.get('loo_bound'))['name']}"
             rows.append((name, (bb.get(key) or {}).get("value"), (ba.get(key) or {}).get("value")))
     return rows
 
@@ -203,12 +242,54 @@ def changed_rows(
     return frame[list(CHANGED_COLUMNS)]
 
 
+def decisions_fingerprint(table: Mapping[str, Decision], ids: set[str]) -> str:
+    """Hash of what the decisions change in the data: the relabels (with their new labels) and the
+    exclusions of ids present in the data. Confirm, defer, notes and times do not change the refit."""
+    effective = sorted(
+        (rid, d.decision, d.new_label if d.decision == "relabel" else "")
+        for rid, d in table.items()
+        if rid in ids and (d.decision == "exclude" or (d.decision == "relabel" and d.new_label is not None))
+    )
+    return hashlib.sha256(json.dumps(effective).encode()).hexdigest()[:16]
+
+
+def _cache_folder(scan: Scan, key: str, root: Path | None) -> Path | None:
+    data_fp = (scan.findings.summary.get("data") or {}).get("fingerprint")
+    if not data_fp:
+        return None
+    return cache_dir(str(data_fp), scan.spec.fingerprint(), root) / f"{WHATIF_PREFIX}{key}"
+
+
+def prune_whatif_cache(scan_folder: Path, keep: int = WHATIF_KEEP) -> list[Path]:
+    """Remove all but the ``keep`` most recently written (or read) what-if results of one scan; return
+    the removed folders."""
+    import shutil
+
+    found = [f for f in scan_folder.glob(f"{WHATIF_PREFIX}*") if f.is_dir()]
+    found.sort(key=lambda f: f.stat().st_mtime, reverse=True)
+    removed = found[keep:]
+    for folder in removed:
+        shutil.rmtree(folder, ignore_errors=True)
+    return removed
+
+
+def _read_after(folder: Path) -> Findings | None:
+    try:
+        rows = pd.read_parquet(folder / "rows.parquet")
+        summary = json.loads((folder / "summary.json").read_text())
+    except (OSError, ValueError):
+        return None
+    return Findings(rows=rows, summary=summary, classes=list(summary.get("classes", [])))
+
+
 def what_if(
     scan: Scan,
     decisions: Mapping[str, Decision] | pd.DataFrame,
     *,
     progress: Progress | None = None,
     should_cancel: Callable[[], bool] | None = None,
+    use_cache: bool | None = None,
+    cache_root: Path | None = None,
 ) -> WhatIf:
     """Apply relabels and exclusions to the scan's data, refit with the same spec, compare.
 
@@ -222,6 +303,15 @@ def what_if(
         change nothing; ids not in the data are listed in ``unmatched`` and otherwise ignored.
     progress, should_cancel
         As for :func:`holdfast.engine.scan.run_scan` (the refit runs exact LOO again).
+    use_cache, cache_root
+        The refit's findings are kept in the scan's cache folder under a fingerprint of the data, the spec
+        and what the decisions change (:func:`decisions_fingerprint`), so the same decisions never refit
+        twice (the inspector's what-if, then the report). Default: the spec's ``run.cache``.
+
+    Raises
+    ------
+    DataError
+        A relabel to a value that is not a class of the label column (names the row id and the classes).
 
     Returns
     -------
@@ -233,6 +323,7 @@ def what_if(
     table = _as_dict(decisions)
     p = scan.prepared
     frame = p.frame
+    check_relabels(table, frame[p.label_column], label_column=p.label_column, source="decisions")
     ids = row_ids(frame, p.id_column)
     present = set(ids)
     unmatched = [rid for rid in table if rid not in present]
@@ -261,15 +352,32 @@ def what_if(
             f"errors, test-set bound) but those rows are never trained on"
         )
     before = scan.findings.summary
+    cached = False
     if not excluded and not relabelled:
         notes.append("no relabel or exclusion changes the data: the model is unchanged")
         after_findings = scan.findings
     else:
-        source = f"{scan.data_path or '<data>'} (with decisions)"
-        prepared = prepare(cleaned.reset_index(drop=True), scan.spec, source=source)
-        prepared.ids = kept_ids
-        after_findings, _, _ = analyse(prepared, scan.spec, progress=progress, should_cancel=should_cancel)
-        after_findings.summary["data"]["path"] = source
+        cache = scan.spec.run.cache if use_cache is None else use_cache
+        folder = _cache_folder(scan, decisions_fingerprint(table, present), cache_root) if cache else None
+        found = _read_after(folder) if folder is not None and (folder / "summary.json").exists() else None
+        if found is not None and len(found.rows) == len(cleaned):
+            after_findings, cached = found, True
+            with contextlib.suppress(OSError):
+                os.utime(folder)  # recently used: kept by prune_whatif_cache
+            if progress is not None:
+                d = int(found.summary.get("d", 0))
+                progress(d, d, 0.0)
+        else:
+            source = f"{scan.data_path or '<data>'} (with decisions)"
+            prepared = prepare(cleaned.reset_index(drop=True), scan.spec, source=source)
+            prepared.ids = kept_ids
+            after_findings, _, _ = analyse(
+                prepared, scan.spec, progress=progress, should_cancel=should_cancel
+            )
+            after_findings.summary["data"]["path"] = source
+            if folder is not None:
+                after_findings.write(folder)
+                prune_whatif_cache(folder.parent)
     after = after_findings.summary
     return WhatIf(
         before=before,
@@ -282,6 +390,7 @@ def what_if(
         held_out_decisions=held_decisions,
         notes=notes,
         findings=after_findings,
+        from_cache=cached,
     )
 
 

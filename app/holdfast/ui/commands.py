@@ -43,6 +43,7 @@ SECTIONS: dict[str, str] = {
     "filter": "View",
     "overview": "View",
     "toggle_detail": "View",
+    "restore": "View",
     "export": "Session",
     "what_if": "Session",
     "cancel": "Scan",

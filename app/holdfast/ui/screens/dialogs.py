@@ -8,7 +8,7 @@ nothing is read as markup.
 from __future__ import annotations
 
 from collections.abc import Sequence
-from typing import ClassVar
+from typing import ClassVar, TypeVar
 
 from rich.text import Text
 from textual import on
@@ -20,6 +20,8 @@ from textual.widgets import Button, Input, OptionList, Static
 from textual.widgets.option_list import Option
 
 from holdfast.ui.textsafe import safe_text
+
+ResultT = TypeVar("ResultT")
 
 
 def plain(value: str | Text) -> Text:
@@ -36,7 +38,33 @@ def wrapped(value: str | Text) -> Text:
     return Text("\n".join(safe_text(line) for line in value.split("\n")))
 
 
-class ChoiceDialog(ModalScreen[str | None]):
+class _Dialog(ModalScreen[ResultT]):
+    """A dialog with a title line above its body and a hint below; escape dismisses it with None."""
+
+    BINDINGS: ClassVar[list[BindingType]] = [
+        Binding("escape", "cancel", "Cancel", id="dialog.cancel"),
+    ]
+
+    def __init__(self, title: str | Text, hint: str | Text, id: str | None) -> None:
+        super().__init__(id=id, classes="dialog-screen")
+        self.title_text = title
+        self.hint = hint
+
+    def body(self) -> ComposeResult:
+        """The widgets between the title and the hint."""
+        yield from ()
+
+    def compose(self) -> ComposeResult:
+        with Vertical(classes="dialog"):
+            yield Static(wrapped(self.title_text), classes="dialog-title")
+            yield from self.body()
+            yield Static(wrapped(self.hint), classes="dialog-hint")
+
+    def action_cancel(self) -> None:
+        self.dismiss(None)
+
+
+class ChoiceDialog(_Dialog[str | None]):
     """Pick one entry of a list. Returns the chosen entry's key, or None when dismissed with escape.
 
     Parameters
@@ -49,10 +77,6 @@ class ChoiceDialog(ModalScreen[str | None]):
         Optional line below the list.
     """
 
-    BINDINGS: ClassVar[list[BindingType]] = [
-        Binding("escape", "cancel", "Cancel", id="dialog.cancel"),
-    ]
-
     def __init__(
         self,
         title: str | Text,
@@ -62,17 +86,12 @@ class ChoiceDialog(ModalScreen[str | None]):
         highlighted: str | None = None,
         id: str | None = None,
     ) -> None:
-        super().__init__(id=id, classes="dialog-screen")
-        self.title_text = title
+        super().__init__(title, hint, id)
         self.choices = list(choices)
-        self.hint = hint
         self.highlighted_key = highlighted
 
-    def compose(self) -> ComposeResult:
-        with Vertical(classes="dialog"):
-            yield Static(wrapped(self.title_text), classes="dialog-title")
-            yield OptionList(*(Option(plain(label)) for _, label in self.choices), id="choices")
-            yield Static(wrapped(self.hint), classes="dialog-hint")
+    def body(self) -> ComposeResult:
+        yield OptionList(*(Option(plain(label)) for _, label in self.choices), id="choices")
 
     def on_mount(self) -> None:
         options = self.query_one(OptionList)
@@ -87,9 +106,6 @@ class ChoiceDialog(ModalScreen[str | None]):
     def _chosen(self, event: OptionList.OptionSelected) -> None:
         event.stop()
         self.dismiss(self.choices[event.option_index][0])
-
-    def action_cancel(self) -> None:
-        self.dismiss(None)
 
 
 class ConfirmDialog(ModalScreen[bool]):
@@ -127,12 +143,8 @@ class ConfirmDialog(ModalScreen[bool]):
         self.dismiss(answer)
 
 
-class TextDialog(ModalScreen[str | None]):
+class TextDialog(_Dialog[str | None]):
     """Type one line of text. Returns the text (possibly empty) on enter, None on escape."""
-
-    BINDINGS: ClassVar[list[BindingType]] = [
-        Binding("escape", "cancel", "Cancel", id="dialog.cancel"),
-    ]
 
     def __init__(
         self,
@@ -143,17 +155,12 @@ class TextDialog(ModalScreen[str | None]):
         hint: str | Text = "enter saves · escape cancels",
         id: str | None = None,
     ) -> None:
-        super().__init__(id=id, classes="dialog-screen")
-        self.title_text = title
+        super().__init__(title, hint, id)
         self.value = value
         self.placeholder = placeholder
-        self.hint = hint
 
-    def compose(self) -> ComposeResult:
-        with Vertical(classes="dialog"):
-            yield Static(wrapped(self.title_text), classes="dialog-title")
-            yield Input(value=self.value, placeholder=self.placeholder, id="text")
-            yield Static(wrapped(self.hint), classes="dialog-hint")
+    def body(self) -> ComposeResult:
+        yield Input(value=self.value, placeholder=self.placeholder, id="text")
 
     def on_mount(self) -> None:
         self.query_one(Input).focus()
@@ -162,6 +169,3 @@ class TextDialog(ModalScreen[str | None]):
     def _submitted(self, event: Input.Submitted) -> None:
         event.stop()
         self.dismiss(event.value)
-
-    def action_cancel(self) -> None:
-        self.dismiss(None)

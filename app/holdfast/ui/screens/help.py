@@ -26,7 +26,7 @@ COLUMN_TITLES: dict[str, str] = {
     "LOO pred": "loo_prediction",
     "decision": "decision",
     "score": "score",
-    "flags": "flags",
+    "flags": "flag_names",
     "flips": "flip_count",
     "margin": "margin",
     "alpha": "alpha",

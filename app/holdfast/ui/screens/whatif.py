@@ -20,7 +20,8 @@ from textual.screen import Screen
 from textual.widgets import Footer, Static
 
 from holdfast.ui.textsafe import safe_text
-from holdfast.ui.widgets.row_table import ColumnSpec, RowTable
+from holdfast.ui.widgets.columns import ColumnSpec
+from holdfast.ui.widgets.row_table import RowTable, movement_bindings
 
 CHANGED_COLUMNS: tuple[ColumnSpec, ...] = (
     ColumnSpec("id", "id", None, "left"),
@@ -77,15 +78,7 @@ def comparison_table(rows: list[tuple[str, Any, Any]]) -> Table:
 class ChangedRowsTable(RowTable):
     """The changed rows, with the movement keys kept out of the footer (enter does nothing here)."""
 
-    BINDINGS: ClassVar[list[BindingType]] = [
-        Binding("up", "cursor_up", "Up", id="whatif.cursor_up", show=False),
-        Binding("down", "cursor_down", "Down", id="whatif.cursor_down", show=False),
-        Binding("pageup", "cursor_page_up", "Page up", id="whatif.page_up", show=False),
-        Binding("pagedown", "cursor_page_down", "Page down", id="whatif.page_down", show=False),
-        Binding("home", "cursor_first", "First row", id="whatif.first", show=False),
-        Binding("end", "cursor_last", "Last row", id="whatif.last", show=False),
-        Binding("enter", "choose_row", id="whatif.choose", show=False),
-    ]
+    BINDINGS: ClassVar[list[BindingType]] = movement_bindings("whatif", show=False, choose="")
 
 
 class WhatIfScreen(Screen[None]):
