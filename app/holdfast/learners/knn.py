@@ -13,9 +13,11 @@ list per row of its k + 1 nearest training rows (itself included), ordered by (d
   reverse neighbour list); j then votes over its list without r. A row is *critical* when that flips at
   least one other training row's predicted class; the flip count is the number of such rows. Exact.
 
-Ties follow scikit-learn: equal distances are ordered by row position (earlier rows first), equal votes go
-to the lowest class code, and with ``weights = "distance"`` a query at distance 0 of some neighbours gets
-its vote from those neighbours only (weight 1 each); otherwise weights are 1 / distance.
+Ties: equal distances are ordered by row position (earlier rows first), as scikit-learn's search keeps the
+earlier row when two distances tie (its own rounding of |a|^2 - 2ab + |b|^2 can break exact ties, e.g.
+between duplicates, either way); equal votes go to the lowest class code, and with
+``weights = "distance"`` a query at distance 0 of some neighbours gets its vote from those neighbours only
+(weight 1 each); otherwise weights are 1 / distance.
 
 Bounds: k-NN has no compression set of its own. The sample compression bound applies to a consistent
 subset such as Hart's condensed set (Hart 1968, "The condensed nearest neighbor rule", IEEE Trans.
