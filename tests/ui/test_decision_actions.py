@@ -14,7 +14,7 @@ import pytest
 
 from holdfast.review.journal import Journal
 from holdfast.ui.decisions import BulkPlan, DecisionActions
-from holdfast.ui.navigation import RowFilters, next_sort
+from holdfast.ui.navigation import Query, RowFilters, next_sort
 from holdfast.ui.session import DecisionBook
 
 IDS = ["crate-a", "crate-b", "crate-c", "crate-d", "crate-e"]
@@ -45,6 +45,7 @@ def rows_frame() -> pd.DataFrame:
             "loo_miss": [True, False, False, True, True],
             "held_out": [False, False, False, True, True],
             "flag_names": ["loo_miss", "", None, "", "bounded"],
+            "score": [0.9, 0.2, np.nan, 0.4, 0.7],
         }
     )
 
@@ -103,28 +104,48 @@ def test_bulk_plan_skips_rows_with_the_new_label_and_counts_replaced_decisions(j
     ]
 
 
-def test_row_filters_masks_counts_and_titles(journal: Journal) -> None:
+def test_row_filters_combine_conditions_and_keep_held_out_rows_apart(journal: Journal) -> None:
     book = DecisionBook(journal, IDS)
     filters = RowFilters(rows_frame(), book, CLASSES)
-    assert filters.mask("all") is None
-    assert filters.mask("support").tolist() == [True, False, True, False, True]
-    assert filters.mask("loo_miss").tolist() == [
-        True,
-        False,
-        False,
-        False,
-        False,
-    ]  # held-out: not LOO
-    assert filters.mask("held_out_miss").tolist() == [False, False, False, True, True]
-    assert filters.mask("flagged").tolist() == [True, False, False, False, True]
-    assert filters.mask("label:premium").tolist() == [True, True, False, False, True]
+    presets = filters.presets()
+    assert filters.has_held_out and filters.default == Query(scope="review")
+    assert filters.mask(Query(scope="all")) is None
+    assert filters.mask(filters.default).tolist() == [True, True, True, False, False]
+    assert filters.mask(presets["held_out"]).tolist() == [False, False, False, True, True]
+    assert filters.mask(presets["support"]).tolist() == [True, False, True, False, False]
+    # loo_miss on a held-out row is the final model's error there: its own preset, not a LOO miss
+    assert filters.mask(presets["loo_miss"]).tolist() == [True, False, False, False, False]
+    assert filters.mask(presets["held_out_miss"]).tolist() == [False, False, False, True, True]
+    assert filters.mask(presets["label:premium"]).tolist() == [True, True, False, False, False]
+    assert filters.mask(presets["queue"]).tolist() == [True, False, False, False, False]
+    book.record([0], "confirm")
+    assert filters.mask(presets["queue"]).tolist() == [False] * 5  # decided rows leave the queue
     book.record([3], "exclude")
-    assert filters.mask("decision:exclude").tolist() == [False, False, False, True, False]
-    assert filters.count("undecided") == 4
+    assert filters.mask(presets["decision:exclude"]).tolist() == [False] * 5  # held out: not in review
+    assert filters.mask(Query(scope="all", decision="exclude")).tolist() == [False, False, False, True, False]
+    # score cut and class combine with the rest; NaN scores never pass a cut
+    combined = Query(scope="all", label="premium", min_score=0.5)
+    assert filters.mask(combined).tolist() == [True, False, False, False, True]
+    assert filters.count(combined) == 2
+    assert filters.key_of(combined) == "custom" and filters.key_of(presets["queue"]) == "queue"
+    assert filters.title(presets["held_out_miss"]) == "held-out errors"
+    assert filters.title(Query(scope="all", kind="flagged")) == "flagged (held-out rows too)"
+    assert combined.title() == "label premium · score ≥ 0.5"
+    assert filters.review_positions(np.array([4, 3, 2, 0])).tolist() == [2, 0]
     choices = dict(filters.choices())
-    assert choices["decision:exclude"] == "decision exclude (1)"
-    assert choices["held_out_miss"] == "held-out errors (2)"
-    assert RowFilters.title("label:juice") == "label juice"
+    assert choices["held_out"] == "held-out rows (2)" and "custom" in choices
     assert next_sort(["id", "score", "margin"], "id") == ("score", True)
     assert next_sort(["id", "score", "margin"], "margin") == ("id", False)
     assert next_sort(["id", "score"], None) == ("id", False)
+
+
+def test_bulk_plan_leaves_held_out_rows_out(journal: Journal) -> None:
+    book = DecisionBook(journal, IDS)
+    review = rows_frame()["held_out"].to_numpy() == False  # noqa: E712
+    actions = DecisionActions(book, LABELS, CLASSES)
+    plan = actions.bulk_plan(np.arange(5), "exclude", review)
+    assert isinstance(plan, BulkPlan) and plan.targets.tolist() == [0, 1, 2]
+    assert "2 held-out rows in this view are left out" in plan.question
+    assert actions.bulk_plan(np.array([3, 4]), "exclude", review) == (
+        "Every row in this view is held out: bulk decisions reach review rows only."
+    )

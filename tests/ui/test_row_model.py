@@ -86,3 +86,25 @@ def test_ids_next_wanted_row_and_text_updates() -> None:
     assert model.next_index(np.zeros(50, dtype=bool)) is None
     model.update_values("score", [0, 1], np.array(["n/a", "n/a"], dtype=object))
     assert model.kinds["score"] == "text" and model.value("score", 1) == "n/a"
+
+
+def test_next_by_follows_the_score_order_under_any_sort() -> None:
+    frame = findings_frame(40, seed=9)
+    frame["score"] = np.linspace(1.0, 0.0, 40)[np.random.default_rng(1).permutation(40)]
+    model = RowModel(frame)
+    model.sort_by("id")  # the view is not in score order
+    by_score = frame["score"].sort_values(ascending=False, kind="stable").index.to_numpy()
+    wanted = np.zeros(40, dtype=bool)
+    wanted[by_score[[2, 5, 9]]] = True
+    model.move_cursor(model.index_of(int(by_score[0])))  # type: ignore[arg-type]
+    seen = []
+    for _ in range(4):
+        index = model.next_by("score", True, wanted)
+        assert index is not None
+        model.move_cursor(index)
+        seen.append(model.cursor_row)
+    assert seen == [by_score[2], by_score[5], by_score[9], by_score[2]]  # wraps to the highest
+    hidden = np.ones(40, dtype=bool)
+    hidden[by_score[[2, 5, 9]]] = False
+    model.set_filter(hidden)
+    assert model.next_by("score", True, wanted) is None  # wanted rows that are not shown do not count

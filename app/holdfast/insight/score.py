@@ -176,3 +176,33 @@ def rank_rows(score: np.ndarray) -> np.ndarray:
     rank = np.empty(len(score), dtype=np.int64)
     rank[order] = np.arange(1, len(score) + 1)
     return rank
+
+
+#: the score's parts as :func:`score_parts` names them: (name, per-row column, weight)
+SCORE_PARTS: tuple[tuple[str, str, float], ...] = (
+    ("LOO margin", "loo_margin", -1.0),
+    ("neighbour dissent", "neighbour_dissent_avg", W_DISSENT),
+    ("logistic log-odds of the label", "linear_logit", -W_LINEAR),
+)
+
+
+def score_parts(
+    loo_margin: float, loo_miss: bool, dissent: float, linear_logit: float
+) -> list[tuple[str, float, float, float, float]]:
+    """One training row's score split into its parts, as :func:`suspicion_score` adds them up.
+
+    Returns ``(name, weight, value, used, contribution)`` per part (see :data:`SCORE_PARTS`): ``value`` as
+    given (NaN when missing), ``used`` after the clip (or the +-1 fallback of a missing LOO margin, 0 for
+    missing dissent or log-odds), ``contribution = weight * used``. The contributions sum to the score.
+    """
+    lm = (-1.0 if loo_miss else 1.0) if np.isnan(loo_margin) else float(loo_margin)
+    used = (
+        float(np.clip(lm, -MARGIN_CLIP, MARGIN_CLIP)),
+        0.0 if np.isnan(dissent) else float(dissent),
+        0.0 if np.isnan(linear_logit) else float(np.clip(linear_logit, -LINEAR_CLIP, LINEAR_CLIP)),
+    )
+    values = (float(loo_margin), float(dissent), float(linear_logit))
+    return [
+        (name, weight, value, u, weight * u)
+        for (name, _, weight), value, u in zip(SCORE_PARTS, values, used, strict=True)
+    ]

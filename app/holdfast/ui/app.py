@@ -8,12 +8,14 @@ from typing import Any, ClassVar
 import pandas as pd
 from textual.app import App
 from textual.binding import Binding, BindingType
+from textual.command import CommandPalette
 from textual.screen import Screen
 
 from holdfast.data.spec import Spec
 from holdfast.ui.commands import InspectorCommands
 from holdfast.ui.screens.inspect import InspectContext, InspectScreen
 from holdfast.ui.session import OpenedSession
+from holdfast.ui.theme import DARK, LIGHT, THEMES
 
 
 class HoldfastApp(App[int]):
@@ -32,7 +34,8 @@ class HoldfastApp(App[int]):
 
     CSS_PATH = "holdfast.tcss"
     TITLE = "holdfast"
-    COMMANDS = App.COMMANDS | {InspectorCommands}
+    #: the command palette lists the inspector's own actions only (no framework system commands)
+    COMMANDS: ClassVar[set[Any]] = {InspectorCommands}
     BINDINGS: ClassVar[list[BindingType]] = [
         Binding(
             "ctrl+q",
@@ -43,6 +46,22 @@ class HoldfastApp(App[int]):
             tooltip="Quit; every decision is already saved",
         ),
         Binding("ctrl+c", "help_quit", show=False, system=True),
+        Binding(
+            "ctrl+p",
+            "command_palette",
+            "Actions",
+            id="holdfast.actions",
+            priority=True,
+            tooltip="Find an action by name: filters, sorts, go to, export, what-if",
+        ),
+        Binding(
+            "ctrl+t",
+            "switch_theme",
+            "Light/dark",
+            id="holdfast.theme",
+            show=False,
+            tooltip="Switch between the dark and the light look",
+        ),
     ]
 
     def __init__(
@@ -56,6 +75,22 @@ class HoldfastApp(App[int]):
     ) -> None:
         super().__init__()
         self.context = InspectContext(Path(data_path), spec, session, scan, frame)
+        for theme in THEMES:
+            self.register_theme(theme)
+        self.theme = DARK.name
+
+    def action_switch_theme(self) -> None:
+        """Dark to light and back."""
+        self.theme = LIGHT.name if self.theme == DARK.name else DARK.name
+
+    def action_command_palette(self) -> None:
+        """Open the palette of the inspector's actions (our wording, our entries)."""
+        if self.use_command_palette and not CommandPalette.is_open(self):
+            self.push_screen(
+                CommandPalette(
+                    id="--command-palette", placeholder="Type an action: filter, sort, go to, export…"
+                )
+            )
 
     def get_default_screen(self) -> Screen:
         return InspectScreen(self.context)

@@ -25,6 +25,8 @@ SECTIONS: dict[str, str] = {
     "exclude": "Decide",
     "defer": "Decide",
     "note": "Decide",
+    "next": "Move",
+    "auto_advance": "Decide",
     "clear": "Decide",
     "undo": "Decide",
     "redo": "Decide",
@@ -51,6 +53,7 @@ SECTIONS: dict[str, str] = {
     "help": "Help",
     "command_palette": "Help",
     "quit": "Help",
+    "switch_theme": "Help",
 }
 SECTION_ORDER = ("Decide", "Move", "View", "Session", "Scan", "Help")
 
@@ -105,8 +108,8 @@ def key_entries(app: App, nodes: Iterable[DOMNode]) -> list[KeyEntry]:
     entries[(id(app), "command_palette")] = KeyEntry(
         "Help",
         palette_key,
-        "Command palette",
-        "Search every action by name and run it",
+        "Actions",
+        "Find an action by name and run it",
         "command_palette",
         app,
     )

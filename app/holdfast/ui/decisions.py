@@ -64,7 +64,9 @@ class BulkPlan:
     question: str
 
 
-def bulk_question(decision: str, new_label: str, count: int, skipped: int, replaced: int) -> str:
+def bulk_question(
+    decision: str, new_label: str, count: int, skipped: int, replaced: int, held_out: int = 0
+) -> str:
     """The confirmation asked before one decision is applied to many rows."""
     verb = {
         "relabel": f"Relabel {count:,} rows to {new_label}",
@@ -75,6 +77,8 @@ def bulk_question(decision: str, new_label: str, count: int, skipped: int, repla
         lines.append(f"{skipped:,} rows already labelled {new_label} are left as they are.")
     if replaced and decision != "clear":
         lines.append(f"{replaced:,} of them have another decision now; it will be replaced.")
+    if held_out:
+        lines.append(f"{held_out:,} held-out rows in this view are left out: they are not review rows.")
     lines.append("One undo (u) takes the whole change back.")
     return "\n".join(lines)
 
@@ -156,13 +160,21 @@ class DecisionActions:
         choices.append(("clear", "clear the decision"))
         return choices
 
-    def bulk_plan(self, positions: np.ndarray, key: str) -> BulkPlan | str:
+    def bulk_plan(self, positions: np.ndarray, key: str, review: np.ndarray | None = None) -> BulkPlan | str:
         """What the bulk choice ``key`` would do to ``positions``; a message when it would do nothing.
 
+        ``review`` marks the review rows (per position); held-out rows are left out of bulk decisions.
         A relabel leaves out rows that already carry the new label.
         """
         decision, _, new_label = key.partition(":")
         targets = np.asarray(positions, dtype=np.intp)
+        held_out = 0
+        if review is not None:
+            keep = review[targets]
+            held_out = int(len(targets) - keep.sum())
+            targets = targets[keep]
+            if len(targets) == 0:
+                return "Every row in this view is held out: bulk decisions reach review rows only."
         skipped = 0
         if decision == "relabel":
             keep = self.labels[targets] != new_label
@@ -174,5 +186,5 @@ class DecisionActions:
             return "No rows in this view."
         kinds = self.book.kind[targets]
         replaced = int(np.count_nonzero((kinds != "") & (kinds != decision)))
-        question = bulk_question(decision, new_label, len(targets), skipped, replaced)
+        question = bulk_question(decision, new_label, len(targets), skipped, replaced, held_out)
         return BulkPlan(decision, new_label or None, targets, question)

@@ -26,14 +26,15 @@ from textual.widgets import Footer, ProgressBar, Static
 
 from holdfast.data.spec import Spec
 from holdfast.ui import jobs
-from holdfast.ui.commands import key_entries
 from holdfast.ui.decisions import CAUTION, DecisionActions, Outcome
+from holdfast.ui.evidence import row_score_parts
 from holdfast.ui.messages import (
     error_line,
 )
-from holdfast.ui.navigation import RowFilters, next_sort
+from holdfast.ui.navigation import Query, RowFilters
 from holdfast.ui.screens.dialogs import ChoiceDialog, ConfirmDialog, TextDialog
 from holdfast.ui.screens.inspect_keys import NEEDS_ROWS, InspectTable, screen_bindings
+from holdfast.ui.screens.inspect_view import ViewActions
 from holdfast.ui.screens.inspect_work import BackgroundWork
 from holdfast.ui.session import DecisionBook, OpenedSession
 from holdfast.ui.textsafe import literal, safe_text
@@ -71,7 +72,7 @@ class InspectContext:
     frame: pd.DataFrame | None = None
 
 
-class InspectScreen(BackgroundWork, Screen[None]):
+class InspectScreen(BackgroundWork, ViewActions, Screen[None]):
     """Browse the rows of a scan, decide on them, export. See the help screen (?) for the keys."""
 
     HORIZONTAL_BREAKPOINTS: ClassVar[list[tuple[int, str]] | None] = [(0, "-narrow"), (130, "-wide")]
@@ -86,7 +87,9 @@ class InspectScreen(BackgroundWork, Screen[None]):
         self.actions: DecisionActions | None = None
         self.filters: RowFilters | None = None
         self.rows: pd.DataFrame | None = None
-        self.filter_key = "all"
+        self.view_query: Query = Query(scope="all")
+        #: after a decision on one row, move on to the next undecided row by score (key a turns it on/off)
+        self.auto_advance = False
         self._busy: str | None = None  # "scan" or "what-if" while a worker runs
         self._scan_state = "idle"  # idle, running, done, failed, cancelled
         self._generation = 0  # number of the current scan; older scans' messages are ignored
@@ -154,6 +157,8 @@ class InspectScreen(BackgroundWork, Screen[None]):
         table = self.table
         table.set_data(frame, list(TABLE_COLUMNS))
         table.sort_by("score", descending=True)
+        self.view_query = self.filters.default
+        table.set_filter(self.filters.mask(self.view_query))
         table.move_cursor(0)
         self.query_one(OverviewPanel).show(scan.findings.summary)  # the margin histogram follows
         self._detail_context = None
@@ -197,22 +202,37 @@ class InspectScreen(BackgroundWork, Screen[None]):
         box.set_class(error, "-error")
         box.update(literal(text))
 
+    @property
+    def filter_key(self) -> str:
+        """The preset key of the filter in force (``custom`` for a combined one)."""
+        return self.filters.key_of(self.view_query) if self.filters is not None else "all"
+
     def _update_status(self) -> None:
-        if self.book is None or self.rows is None:
+        if self.book is None or self.filters is None:
             self.query_one("#status", Static).update("")
             return
-        table = self.table
-        view = len(table.view_positions()) if table.row_count else 0
-        total = table.row_count
-        parts = [f"row {table.cursor_index + 1:,} of {view:,}" if view else "no rows"]
-        if self.filter_key != "all":
-            parts.append(f"filter: {RowFilters.title(self.filter_key)} ({total:,} rows in all)")
+        table, filters = self.table, self.filters
+        view = table.view_positions() if table.row_count else np.zeros(0, dtype=np.intp)
+        parts = [f"row {table.cursor_index + 1:,} of {len(view):,}" if len(view) else "no rows"]
+        if self.auto_advance:
+            parts.append("auto-advance")
+        if self.view_query != filters.default:
+            parts.append(f"filter: {filters.title(self.view_query)}")
         if table.sort_key:
             title = next((s.title for s in TABLE_COLUMNS if s.key == table.sort_key), table.sort_key)
             parts.append(f"sort: {title} {'▼' if table.sort_descending else '▲'}")
+        queue = filters.review_positions(view)
+        if len(queue) != int(filters.review.sum()):
+            done = int(np.count_nonzero(self.book.kind[queue] != ""))
+            parts.append(f"this view: {done:,} of {len(queue):,} decided")
+        review = filters.review
         counts = self.book.counts()
         decided = ", ".join(f"{k} {v:,}" for k, v in counts.items() if v)
-        parts.append(f"decided {self.book.decided:,} of {total:,}" + (f" ({decided})" if decided else ""))
+        reviewed = int(np.count_nonzero(self.book.kind[review] != ""))
+        what = "review rows" if filters.has_held_out else ""
+        parts.append(f"decided {reviewed:,} of {int(review.sum()):,}{' ' + what if what else ''}")
+        if decided:
+            parts[-1] += f" ({decided})"
         self.query_one("#status", Static).update(literal(" · ".join(parts)))
 
     # ------------------------------------------------------------------ table events, detail panel
@@ -234,12 +254,6 @@ class InspectScreen(BackgroundWork, Screen[None]):
     def _row_chosen(self, event: RowTable.RowChosen) -> None:
         self._toggle_maximized(self.query_one(RowDetailPanel))
 
-    def _toggle_maximized(self, widget: Any) -> None:
-        if self.maximized is widget:
-            self.minimize()
-        else:
-            self.maximize(widget, container=False)
-
     def _update_detail_now(self) -> None:
         self._detail_timer = None
         panel = self.query_one(RowDetailPanel)
@@ -256,7 +270,10 @@ class InspectScreen(BackgroundWork, Screen[None]):
             self._set_message(f"Row detail failed: {error_line(exc)}", error=True)
             return
         text, note = self.book.text[position], self.book.note(position)
-        panel.show(detail, decision=(f"{text} {note}" if note else text) or None)
+        parts, pending = row_score_parts(self.rows, position)
+        panel.show(
+            detail, decision=(f"{text} {note}" if note else text) or None, parts=parts, provisional=pending
+        )
 
     # ------------------------------------------------------------------ actions: availability
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
@@ -317,7 +334,10 @@ class InspectScreen(BackgroundWork, Screen[None]):
         The cursor stays on its row, so that a note (n) or an undo (u) right after goes to the same row.
         """
         assert self.actions is not None
-        return self._show_outcome(self.actions.decide(positions, decision, new_label))
+        saved = self._show_outcome(self.actions.decide(positions, decision, new_label))
+        if saved and self.auto_advance and len(positions) == 1 and decision != "clear":
+            self.action_next()
+        return saved
 
     def _show_outcome(self, outcome: Outcome) -> bool:
         """Redraw the rows an action changed and say what happened; False when nothing was saved."""
@@ -362,117 +382,38 @@ class InspectScreen(BackgroundWork, Screen[None]):
     def action_bulk(self) -> None:
         assert self.actions is not None
         actions = self.actions
+        assert self.filters is not None
+        filters = self.filters
         positions = self.table.view_positions()
+        review = filters.review_positions(positions)
         if len(positions) == 0:
             self._set_message("No rows in this view.")
             return
-        view = RowFilters.title(self.filter_key)
-        title = f"One decision for all {len(positions):,} rows in this view ({view}):"
+        if len(review) == 0:
+            self._set_message("Every row in this view is held out: bulk decisions reach review rows only.")
+            return
+        held = (
+            f"; {len(positions) - len(review):,} held-out rows are left out"
+            if len(review) < len(positions)
+            else ""
+        )
+        what = filters.title(self.view_query)
+        title = f"One decision for all {len(review):,} review rows in this view ({what}{held}):"
 
         def chosen(key: str | None) -> None:
             if key is None:
                 return
-            plan = actions.bulk_plan(positions, key)
+            plan = actions.bulk_plan(positions, key, filters.review)
             if isinstance(plan, str):
                 self._set_message(plan)
                 return
 
             def confirmed(yes: bool | None) -> None:
                 if yes and self._decide(plan.targets, plan.decision, plan.new_label):
-                    self._apply_filter(self.filter_key)
+                    self._apply_query(self.view_query)
 
             self.app.push_screen(
                 ConfirmDialog(plan.question, yes="Apply", no="Cancel", id="bulk-confirm"), confirmed
             )
 
         self.app.push_screen(ChoiceDialog(title, actions.bulk_choices(), id="bulk-dialog"), chosen)
-
-    # ------------------------------------------------------------------ actions: view
-    def _apply_filter(self, key: str) -> None:
-        assert self.filters is not None
-        self.filter_key = key
-        self.table.set_filter(self.filters.mask(key))
-        self._update_status()
-        self._schedule_detail()
-
-    def action_filter(self) -> None:
-        assert self.filters is not None
-
-        def chosen(key: str | None) -> None:
-            if key is not None:
-                self._apply_filter(key)
-
-        dialog = ChoiceDialog(
-            "Show:", self.filters.choices(), highlighted=self.filter_key, id="filter-dialog"
-        )
-        self.app.push_screen(dialog, chosen)
-
-    def action_sort(self) -> None:
-        key, descending = next_sort([s.key for s in TABLE_COLUMNS], self.table.sort_key)
-        self.table.sort_by(key, descending=descending)
-
-    def action_reverse(self) -> None:
-        key = self.table.sort_key
-        if key is None:
-            self._set_message("Rows are in file order; press s to sort first.")
-            return
-        self.table.sort_by(key, descending=not self.table.sort_descending)
-
-    def action_goto(self) -> None:
-        def chosen(text: str | None) -> None:
-            if not text or self.book is None:
-                return
-            row_id = text.strip()
-            if self.table.jump_to_id(row_id):
-                return
-            if row_id in self.book.position:
-                self._apply_filter("all")
-                self.table.jump_to_id(row_id)
-                self._set_message(f"Showing all rows: {row_id} was hidden by the filter.")
-            else:
-                self._set_message(f"No row with id {row_id}.", error=True)
-
-        dialog = TextDialog("Go to the row with id:", hint="enter jumps · escape cancels", id="goto-dialog")
-        self.app.push_screen(dialog, chosen)
-
-    def action_toggle_detail(self) -> None:
-        panel = self.query_one(RowDetailPanel)
-        if self.maximized is panel:
-            self.minimize()
-        panel.display = not panel.display
-        if panel.display:
-            self._update_detail_now()
-        self.focus_table()
-
-    def action_overview(self) -> None:
-        self._toggle_maximized(self.query_one(OverviewPanel))
-
-    def watch_maximized(self, maximized: Any) -> None:
-        """The whole-screen overview shows each bound's full source; the compact one a short citation.
-
-        Back from a whole-screen view, the keys go to the table again (up/down move the highlighted row).
-        """
-        self.query_one(OverviewPanel).set_full(maximized is self.query_one(OverviewPanel))
-        if maximized is None:
-            self.focus_table()
-
-    def focus_table(self) -> None:
-        """Give the keys back to the row table, whose highlighted row every decision key acts on."""
-        if self.maximized is None and self.is_attached:
-            self.table.focus(scroll_visible=False)
-
-    def on_screen_resume(self) -> None:
-        """A dialog or another screen closed: the keys go back to the table."""
-        self.focus_table()
-
-    def action_restore(self) -> None:
-        """Leave the whole-screen detail or overview."""
-        self.minimize()
-
-    def action_help(self) -> None:
-        from holdfast.ui.screens.help import HelpScreen
-
-        entries = key_entries(self.app, self.command_nodes())
-        self.app.push_screen(
-            HelpScreen(entries, caution=CAUTION, session_path=str(self.context.session.path))
-        )

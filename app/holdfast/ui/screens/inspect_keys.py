@@ -20,6 +20,8 @@ _KEYS: tuple[tuple[str, str, str, bool, str | None], ...] = (
     ("x", "exclude", "Exclude", True, None),
     ("d", "defer", "Defer", True, None),
     ("n", "note", "Note", True, None),
+    ("space", "next", "Next", True, None),
+    ("a", "auto_advance", "Auto-advance", False, None),
     ("backspace,delete", "clear", "Clear", False, None),
     ("u", "undo", "Undo", True, "Undo/redo"),
     ("y", "redo", "Redo", True, "Undo/redo"),
@@ -44,11 +46,13 @@ HELP: dict[str, str] = {
     "exclude": "Leave the row out of the cleaned data set",
     "defer": "Decide later",
     "note": "Add or change the row's note",
+    "next": "Go to the next row without a decision, by score (highest first), in this view",
+    "auto_advance": "Turn on/off: after a decision, go to the next row without a decision by score",
     "clear": "Remove the row's decision (its note stays)",
     "undo": "Undo the last decision (also across sessions)",
     "redo": "Redo what undo took back",
     "bulk": "One decision for every row in the current view, after a confirmation",
-    "filter": "Show only support rows, LOO misses, flagged or undecided rows, a class, a decision",
+    "filter": "The review queue, held-out rows, flagged, LOO misses, a class, a decision; or combine them",
     "sort": "Sort by the next column (or click a column title)",
     "reverse": "Reverse the sort order",
     "goto": "Jump to the row with a given id",
@@ -89,7 +93,19 @@ def screen_bindings() -> list[BindingType]:
 
 #: Actions that need a finished scan (hidden from the footer until there are rows).
 NEEDS_ROWS = frozenset(
-    {"relabel", "confirm", "exclude", "defer", "note", "clear", "undo", "redo", "bulk"}
+    {
+        "relabel",
+        "confirm",
+        "exclude",
+        "defer",
+        "note",
+        "clear",
+        "undo",
+        "redo",
+        "bulk",
+        "next",
+        "auto_advance",
+    }
     | {"filter", "sort", "reverse", "goto", "export", "what_if"}
 )
 

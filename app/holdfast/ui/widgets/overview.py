@@ -24,7 +24,7 @@ from textual.widgets import Static
 from holdfast.insight.histograms import Histogram
 from holdfast.ui.textsafe import safe_text
 from holdfast.ui.widgets.histogram import HistogramBars
-from holdfast.ui.widgets.row_detail import fmt_number
+from holdfast.ui.widgets.text_layout import fmt_number
 
 #: bounds in the order an analyst reads them; others follow in the summary's order
 BOUND_ORDER = ("loo_error", "support_fraction", "loo_bound", "xi_alpha", "span", "compression", "test_set")

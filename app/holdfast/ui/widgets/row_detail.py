@@ -10,15 +10,10 @@ shown as visible escapes.
 
 from __future__ import annotations
 
-import math
-import re
-from collections.abc import Sequence
-from dataclasses import dataclass
-from typing import Any, ClassVar, Literal
+from typing import ClassVar
 
 import numpy as np
-import pandas as pd
-from rich.cells import cell_len, set_cell_size
+from rich.cells import cell_len
 from rich.segment import Segment
 from rich.style import Style
 from textual import events
@@ -28,147 +23,29 @@ from textual.strip import Strip
 
 from holdfast.insight.detail import RowDetail
 from holdfast.ui.textsafe import safe_text
+from holdfast.ui.widgets.text_layout import (
+    DASH,
+    Col,
+    Line,
+    Part,
+    fit,
+    fmt_number,
+    fmt_value,
+    grid,
+    records,
+    wrap,
+)
 
 #: |z| at or above this marks a feature value as unusual for the class. Common practice (the "three
 #: sigma" rule of thumb), not a test: with many features some values pass it by chance.
 UNUSUAL_Z = 3.0
+#: one part of the score: (name, weight, value, used, contribution), see ``insight.score.score_parts``
+ScorePart = tuple[str, float, float, float, float]
 #: flipped rows listed before "... and N more"
 FLIPPED_SHOWN = 40
 UNUSUAL_MARK = "!"
 DISSENT_MARK = "≠"
 ARROW = "→"
-DASH = "–"
-ELLIPSIS = "…"
-
-Part = tuple[str, str]  # (text, component-class suffix or "" for plain)
-Line = list[Part]
-Align = Literal["left", "right"]
-
-
-def fmt_number(value: Any, spec: str = ".4g") -> str:
-    """A number for the panel: NaN as a dash, infinities as +inf / -inf."""
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        return safe_text(value)
-    if math.isnan(v):
-        return DASH
-    if math.isinf(v):
-        return "+inf" if v > 0 else "-inf"
-    return format(v, spec)
-
-
-def fmt_value(value: Any) -> str:
-    """A data value in its own units: integers and text as they are, floats to 6 significant digits."""
-    if value is None:
-        return ""
-    if isinstance(value, bool | np.bool_):
-        return str(bool(value))
-    if isinstance(value, int | np.integer):
-        return str(int(value))
-    if isinstance(value, float | np.floating):
-        return fmt_number(value, ".6g")
-    return safe_text(value)
-
-
-class _Record(dict):
-    """One table row with its columns as attributes."""
-
-    __getattr__ = dict.__getitem__
-
-
-def records(frame: pd.DataFrame) -> list[_Record]:
-    """The rows of a small frame as records (much cheaper than ``itertuples`` for a few rows)."""
-    columns = [str(c) for c in frame.columns]
-    data = [frame[c].tolist() for c in frame.columns]
-    return [_Record(zip(columns, values, strict=True)) for values in zip(*data, strict=True)]
-
-
-def fit(text: str, width: int, align: Align = "left") -> str:
-    """``text`` padded or cut (with an ellipsis) to exactly ``width`` terminal cells."""
-    if width <= 0:
-        return ""
-    size = cell_len(text)
-    if size > width:
-        return set_cell_size(text, width - 1) + ELLIPSIS if width > 1 else ELLIPSIS
-    pad = " " * (width - size)
-    return pad + text if align == "right" else text + pad
-
-
-def wrap(parts: Sequence[Part], width: int, indent: int = 0) -> list[Line]:
-    """Greedy word wrap of styled parts to ``width`` cells; continuation lines start with ``indent``
-    spaces; a word longer than a line is cut into pieces."""
-    width = max(1, width)
-    indent = min(indent, width - 1) if width > 1 else 0
-    lines: list[Line] = [[]]
-    used = 0
-    start = 0
-    for text, style in parts:
-        for token in re.findall(r"\S+|\s+", text):
-            if token.isspace():
-                if used > start:
-                    _append(lines[-1], token, style)
-                    used += cell_len(token)
-                continue
-            size = cell_len(token)
-            if used + size > width and used > start:
-                while lines[-1] and lines[-1][-1][0].isspace():
-                    used -= cell_len(lines[-1].pop()[0])
-                lines.append([(" " * indent, "")] if indent else [])
-                used = start = indent
-            while size > width - used:
-                room = width - used
-                piece = set_cell_size(token, room)
-                lines[-1].append((piece, style))
-                token = token[len(piece) :]
-                size = cell_len(token)
-                lines.append([(" " * indent, "")] if indent else [])
-                used = start = indent
-            _append(lines[-1], token, style)
-            used += size
-    return lines
-
-
-def _append(line: Line, text: str, style: str) -> None:
-    """Add ``text`` to ``line``, joining it to the last part when the style is the same."""
-    if line and line[-1][1] == style:
-        line[-1] = (line[-1][0] + text, style)
-    else:
-        line.append((text, style))
-
-
-@dataclass(frozen=True)
-class Col:
-    """A column of a :func:`grid`: alignment, width limits, and whether it takes the spare width."""
-
-    align: Align = "left"
-    min: int = 1
-    max: int = 40
-    flex: bool = False
-
-
-def grid(rows: Sequence[Sequence[Part]], cols: Sequence[Col], width: int) -> list[Line]:
-    """Lay out rows of single-style cells in columns one space apart, fitted to ``width`` cells.
-
-    Columns take their widest cell (within their limits); the flex column takes what is left and
-    gives it back first when the width is short; a line that still does not fit is cut at the edge.
-    """
-    widths = [max([c.min, *(cell_len(r[j][0]) for r in rows)]) for j, c in enumerate(cols)]
-    widths = [min(w, c.max) for w, c in zip(widths, cols, strict=True)]
-    spare = width - sum(widths) - (len(cols) - 1)
-    for j, c in enumerate(cols):
-        if c.flex:
-            widths[j] = max(c.min, widths[j] + spare) if spare < 0 else max(widths[j], c.min) + spare
-            break
-    out: list[Line] = []
-    for r in rows:
-        line: Line = []
-        for j, (text, style) in enumerate(r):
-            if j:
-                line.append((" ", ""))
-            line.append((fit(text, widths[j], cols[j].align), style))
-        out.append(line)
-    return out
 
 
 class RowDetailPanel(ScrollView):
@@ -220,6 +97,8 @@ class RowDetailPanel(ScrollView):
         super().__init__(name=name, id=id, classes=classes)
         self.detail: RowDetail | None = None
         self.decision: str | None = None
+        self.parts: list[ScorePart] | None = None
+        self.provisional = False
         self._lines: list[Line] = []
         self._strips: list[Strip] = []
         self._laid_width = -1
@@ -227,12 +106,22 @@ class RowDetailPanel(ScrollView):
 
     # -- public ----------------------------------------------------------------------------------------
 
-    def show(self, detail: RowDetail | None, *, decision: str | None = None) -> None:
-        """Draw ``detail``; ``decision`` is the row's current decision as text (e.g. ``"relabel → b"``).
-        The panel scrolls back to the top when the row changes."""
+    def show(
+        self,
+        detail: RowDetail | None,
+        *,
+        decision: str | None = None,
+        parts: list[ScorePart] | None = None,
+        provisional: bool = False,
+    ) -> None:
+        """Draw ``detail``; ``decision`` is the row's current decision as text (e.g. ``"relabel → b"``);
+        ``parts`` the score's parts (``holdfast.insight.score.score_parts``); ``provisional`` says the
+        row's LOO refit has not arrived yet. The panel scrolls back to the top when the row changes."""
         same_row = detail is not None and self.detail is not None and detail.position == self.detail.position
         self.detail = detail
         self.decision = decision
+        self.parts = parts
+        self.provisional = provisional
         self._relayout()
         if not same_row:
             self.scroll_to(0, 0, animate=False)
@@ -261,6 +150,8 @@ class RowDetailPanel(ScrollView):
             return [[("No row selected.", "muted")]]
         out: list[Line] = []
         out += self._header(d, width, decision)
+        if self.parts and not d.held_out:
+            out += [[], *self._score(d, self.parts, width)]
         out += [[], *self._flags(d, width)]
         out += [[], *self._features(d, width)]
         out += [[], *self._neighbours(d, width)]
@@ -316,6 +207,43 @@ class RowDetailPanel(ScrollView):
             out += wrap([("decision ", "muted"), (safe_text(decision), "decision")], width, indent=2)
         return out
 
+    def _score(self, d: RowDetail, parts: list[ScorePart], width: int) -> list[Line]:
+        head: list[Part] = [("Why this score", "heading"), (f"  {fmt_number(d.score, '.3f')} = ", "muted")]
+        head.append((" + ".join(f"({p[4]:+.3f})" for p in parts), "muted"))
+        out = wrap(head, width)
+        if self.provisional:
+            out += wrap(
+                [("provisional: the LOO refit has not arrived; the full-fit margin stands in", "muted")],
+                width,
+                2,
+            )
+        rows: list[list[Part]] = [
+            [("part", "muted"), ("value", "muted"), ("used", "muted"), ("weight", "muted"), ("adds", "muted")]
+        ]
+        for name, weight, value, used, contribution in parts:
+            rows.append(
+                [
+                    (name, ""),
+                    (fmt_number(value, "+.3f"), ""),
+                    (fmt_number(used, "+.3f"), "muted" if used == value else ""),
+                    (f"{weight:+g}", "muted"),
+                    (f"{contribution:+.3f}", "miss" if contribution > 0 else "agree"),
+                ]
+            )
+        cols = [
+            Col(min=8, max=32, flex=True),
+            Col("right", 6, 9),
+            Col("right", 6, 9),
+            Col("right", 6, 7),
+            Col("right", 6, 8),
+        ]
+        out += grid(rows, cols, width)
+        out += wrap(
+            [("used: after the clip (a missing value counts as 0, a missing LOO margin as ±1)", "muted")],
+            width,
+        )
+        return out
+
     def _flags(self, d: RowDetail, width: int) -> list[Line]:
         out = wrap([("Flags", "heading"), ("  evidence, not proof", "muted")], width)
         if not d.flags:
@@ -342,6 +270,10 @@ class RowDetailPanel(ScrollView):
             [("feature", "muted"), ("value", "muted"), ("class mean", "muted"), ("z", "muted"), ("", "")]
         ]
         unusual_seen = False
+        if "z" in f:  # the features that stand out most for the label first (|z| largest; no z last)
+            f = f.iloc[
+                np.argsort(-np.nan_to_num(np.abs(f["z"].to_numpy(dtype=float)), nan=-1.0), kind="stable")
+            ]
         for r in records(f):
             if r.kind == "categorical":
                 share = "" if np.isnan(r.share) else f"{r.share:.0%} share"

@@ -378,3 +378,22 @@ class RowModel:
             return None
         later = hits[hits > start]
         return int(later[0] if later.size else hits[0])
+
+    def next_by(self, column: str, descending: bool, wanted: np.ndarray) -> int | None:
+        """View index of the next shown row with ``wanted[position]`` in the order of ``column``.
+
+        "Next" follows the order of ``column`` (``descending``: largest first) from the cursor's row, not
+        the view's order, so it works under any sort; it wraps around to the start of that order.
+        ``None`` when no shown row is wanted (the cursor's own row counts only when it is the last one).
+        """
+        if len(self.view) == 0:
+            return None
+        order = self._sorted(column, descending)
+        ok = np.asarray(wanted, dtype=bool)[order] & (self._where[order] >= 0)
+        hits = np.flatnonzero(ok)
+        if hits.size == 0:
+            return None
+        current = self.cursor_row
+        rank = int(np.flatnonzero(order == current)[0]) if current is not None else -1
+        later = hits[hits > rank]
+        return int(self._where[order[later[0] if later.size else hits[0]]])
