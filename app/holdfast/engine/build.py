@@ -88,7 +88,7 @@ def full_fit_priority(model: FittedModel, evidence: pd.DataFrame, train_index: n
             "held_out": np.zeros(len(model.y), dtype=bool),
         }
     )
-    return suspicion_score(frame)
+    return suspicion_score(frame, margin_unit=margin_unit(model))
 
 
 def _loo_margin(model: FittedModel, loo: LooResult) -> np.ndarray:
