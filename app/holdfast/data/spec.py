@@ -25,6 +25,9 @@ INSIGHT_KEYS = ("k", "delta")
 #: Learner keys by family; a family's learner module validates the values.
 LEARNER_KEYS: dict[str, tuple[str, ...]] = {
     "svm": ("family", "kernel", "C", "gamma", "degree", "coef0", "class_weight", "tol"),
+    "knn": ("family", "k", "weights", "metric"),
+    "perceptron": ("family", "epochs", "intercept"),
+    "logistic": ("family", "C", "tol"),
 }
 
 
@@ -204,6 +207,12 @@ def parse_spec(table: dict[str, Any], source: str = "<spec>") -> Spec:
         )
     for key in learner:
         if key not in LEARNER_KEYS[family]:
+            other = [f for f, keys in LEARNER_KEYS.items() if key in keys and f != family]
+            if other:
+                raise SpecError(
+                    f"{source}: key 'learner.{key}' belongs to family {other[0]!r}, not {family!r}; "
+                    f"valid keys for {family!r}: {', '.join(LEARNER_KEYS[family])}"
+                )
             raise _unknown("learner.", key, LEARNER_KEYS[family], source)
     from holdfast.learners import validate_params
 

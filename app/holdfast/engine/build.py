@@ -18,7 +18,7 @@ from holdfast.insight.consensus import linear_label_logit
 from holdfast.insight.explain import explain
 from holdfast.insight.flags import FLAG_REASONS, TWIN_TOL, compute_flags
 from holdfast.insight.score import multiscale_dissent, rank_rows, suspicion_score
-from holdfast.learners.base import FittedModel, signed_margins
+from holdfast.learners.base import SUPPORT_MEANING, FittedModel, signed_margins
 
 
 def _class_values(prepared: Prepared, codes: np.ndarray) -> pd.Series:
@@ -88,7 +88,7 @@ def full_fit_priority(model: FittedModel, evidence: pd.DataFrame, train_index: n
             "held_out": np.zeros(len(model.y), dtype=bool),
         }
     )
-    return suspicion_score(frame)
+    return suspicion_score(frame, margin_unit=margin_unit(model))
 
 
 def _loo_margin(model: FittedModel, loo: LooResult) -> np.ndarray:
@@ -97,6 +97,29 @@ def _loo_margin(model: FittedModel, loo: LooResult) -> np.ndarray:
     if loo.loo_margin is None:
         return signed
     return np.where(np.isnan(loo.loo_margin), signed, loo.loo_margin)
+
+
+def _loo_exact(model: FittedModel, loo: LooResult) -> np.ndarray:
+    """Per training row: its LOO prediction and margin are exact (not an approximation)."""
+    if loo.exact is not None:
+        return np.asarray(loo.exact, dtype=bool)
+    return np.full(len(model.y), bool(model.loo_exact))
+
+
+def margin_unit(model: FittedModel) -> float:
+    """The decision-value size the suspicion score reads as one margin unit, per family.
+
+    SVM: 1 (free support rows sit at y f(x) = 1); logistic regression: 1 log-odds unit; k-NN: 0.5 of a
+    vote share (own share minus the best other's lies in [-1, 1], so the score's clip of 2 units spans
+    it); perceptron: its decision values have no natural scale (they grow with the updates), so the
+    median |f(x)| over the training rows is one unit (our choice).
+    """
+    if model.family == "knn":
+        return 0.5
+    if model.family == "perceptron":
+        med = float(np.median(np.abs(model.margin))) if len(model.margin) else 0.0
+        return med if med > 0 else 1.0
+    return 1.0
 
 
 def build_rows(
@@ -159,13 +182,14 @@ def build_rows(
             "alpha": spread(model.alpha, 0.0, float),
             "margin": margin,
             "loo_margin": spread(_loo_margin(model, loo), np.nan, float),
+            "loo_exact": spread(_loo_exact(model, loo), False, bool),
             "flip_count": spread(loo.flip_count, 0, np.int64),
             "held_out": ~prepared.train,
         }
     )
     rows = pd.concat([rows, evidence.reset_index(drop=True)], axis=1)
     rows = compute_flags(rows)
-    rows["score"] = suspicion_score(rows)
+    rows["score"] = suspicion_score(rows, margin_unit=margin_unit(model))
     rows["rank"] = rank_rows(rows["score"].to_numpy())
     if pending is not None:
         rows = _mask_pending(rows, pend)
@@ -180,6 +204,8 @@ def _mask_pending(rows: pd.DataFrame, pend: np.ndarray) -> pd.DataFrame:
     rows["essential"] = pd.Series(rows["essential"].to_numpy(), dtype="boolean").mask(pend)
     rows["flip_count"] = pd.Series(rows["flip_count"].to_numpy(), dtype="Int64").mask(pend)
     rows["loo_margin"] = rows["loo_margin"].where(~pend)
+    if "loo_exact" in rows:
+        rows["loo_exact"] = rows["loo_exact"].to_numpy(dtype=bool) & ~pend
     rows["loo_pending"] = pend
     return rows
 
@@ -203,7 +229,43 @@ def bounds_summary(
     y = model.y
     train_err_outside = int(((model.prediction != y) & ~model.support).sum())
     loo_miss_outside = int(((loo.loo_code != y) & ~model.support).sum())
-    out: dict[str, Any] = {
+    two = len(model.classes) == 2
+    loo_source = {
+        "svm": "exact refits of the support rows",
+        "perceptron": "exact refits of the update rows",
+        "knn": "exact for every row from the neighbour lists",
+        "logistic": "one-step approximation (Rad & Maleki 2020) with exact refits near the boundary",
+    }.get(model.family, "")
+    if model.family in ("knn", "logistic"):
+        # no compression set: removing any row changes the model, so neither d/m, the LOO bound nor the
+        # compression bound on the support rows applies
+        out: dict[str, Any] = {
+            "loo_error": {
+                "name": "exact LOO error" if model.family == "knn" else "LOO error",
+                "value": float(((loo.loo_code != y) & ~_pending_of(rows, tr)).mean()),
+                "source": "Lachenbruch & Mickey 1968, Estimation of error rates in discriminant analysis, "
+                f"Technometrics 10 (leave-one-out); {loo_source}",
+            }
+        }
+        if model.family == "knn":
+            store = model.extras["condensed"]
+            errs = int(model.extras["condensed_errors"])
+            out["compression_condensed"] = {
+                "name": "compression bound (condensed 1-NN)",
+                "value": B.compression_bound(m, len(store), errs, delta),
+                "size": len(store),
+                "k": errs,
+                "delta": delta,
+                "source": "Hart 1968, The condensed nearest neighbor rule, IEEE Trans. Inf. Theory 14 "
+                "(a consistent subset); Langford 2005, JMLR 6 (sample compression bound)",
+                "note": f"for the 1-NN rule on Hart's condensed set of {len(store)} rows, not for k-NN "
+                f"itself; delta={delta}",
+            }
+        else:
+            out["loo_error"]["note"] = f"{int(_loo_exact(model, loo).sum())} of {m} rows exact"
+        _held_bound(out, prepared, rows, delta)
+        return out
+    out = {
         "support_fraction": {
             "name": "support fraction d/m",
             "value": B.support_fraction(d, m),
@@ -227,7 +289,7 @@ def bounds_summary(
             "name": "exact LOO error",
             "value": float(((loo.loo_code != y) & ~_pending_of(rows, tr)).mean()),
             "source": "Lachenbruch & Mickey 1968, Estimation of error rates in discriminant analysis, "
-            "Technometrics 10 (leave-one-out); exact refits of the support rows",
+            f"Technometrics 10 (leave-one-out); {loo_source}",
         },
         "compression": {
             "name": "compression bound",
@@ -239,9 +301,35 @@ def bounds_summary(
             "note": f"delta={delta}",
         },
     }
+    if model.family == "perceptron":
+        out["compression"]["note"] = f"on the update set; delta={delta}"
+        nov = model.extras.get("novikoff")
+        if nov is None:
+            out["novikoff"] = {
+                "name": "Novikoff mistake bound",
+                "value": None,
+                "applies": False,
+                "source": "Novikoff 1962, On convergence proofs on perceptrons",
+                "note": "defined for two classes only",
+            }
+        else:
+            out["novikoff"] = {
+                "name": "Novikoff mistake bound",
+                "value": nov["bound"],
+                "applies": bool(nov["applies"]),
+                "updates": int(nov["updates"]),
+                "R": nov["R"],
+                "gamma": nov["gamma"],
+                "source": "Novikoff 1962, On convergence proofs on perceptrons: updates <= (R / gamma)^2",
+                "note": (
+                    f"a count of updates, not an error rate; {nov['updates']} made"
+                    if nov["applies"]
+                    else "does not apply: the final weights do not separate the training rows"
+                ),
+            }
     if static is not None and "fit_estimates" in static:
         out.update(static["fit_estimates"])
-    elif model.family == "svm" and len(model.classes) == 2:
+    elif model.family == "svm" and two:
         # two-class theorems: margin = y f(x) with y in {-1, +1}, alpha = |dual_coef_|
         xa = B.xi_alpha(model.alpha, model.margin, model.extras["kernel_r2"])
         out["xi_alpha"] = {
@@ -258,6 +346,12 @@ def bounds_summary(
             out["span"] = span
     if static is not None:
         static["fit_estimates"] = {k: out[k] for k in ("xi_alpha", "span") if k in out}
+    _held_bound(out, prepared, rows, delta)
+    return out
+
+
+def _held_bound(out: dict[str, Any], prepared: Prepared, rows: pd.DataFrame, delta: float) -> None:
+    """Add the test-set bound when rows were held out."""
     held = ~prepared.train
     if held.any():
         hr = rows[held]
@@ -273,7 +367,6 @@ def bounds_summary(
             "(test-set bound)",
             "note": f"delta={delta}",
         }
-    return out
 
 
 def span_summary(model: FittedModel, m: int) -> dict[str, Any] | None:
@@ -303,6 +396,54 @@ def span_summary(model: FittedModel, m: int) -> dict[str, Any] | None:
         "Neural Computation 12(9)",
         "note": "estimate, not a bound: assumes the support set stays the same without the row",
     }
+
+
+#: Per-row columns that mean something only for some families (the faces hide them elsewhere).
+FAMILY_COLUMNS: dict[str, tuple[str, ...]] = {
+    "svm": ("alpha", "bounded"),
+    "perceptron": ("alpha",),
+    "knn": (),
+    "logistic": (),
+}
+#: What the alpha column holds, where it means something.
+ALPHA_MEANING = {
+    "svm": "dual weight (0 outside the support set)",
+    "perceptron": "updates the row caused (the dual perceptron's weight)",
+}
+
+
+def family_summary(model: FittedModel, m: int) -> dict[str, Any]:
+    """The ``family`` object of the summary: what "support rows" means for the family in use, which
+    family-specific columns apply, how the LOO was computed, and the family's own facts."""
+    meaning = SUPPORT_MEANING.get(model.family, {"name": "support rows", "meaning": ""})
+    out: dict[str, Any] = {
+        "name": model.family,
+        "support_name": meaning["name"],
+        "support_meaning": meaning["meaning"],
+        "columns": list(FAMILY_COLUMNS.get(model.family, ("alpha", "bounded"))),
+        "alpha_meaning": ALPHA_MEANING.get(model.family),
+        "classes": len(model.classes),
+        "multiclass": "one-vs-rest" if model.family in ("perceptron", "logistic") else "plain",
+    }
+    if model.family == "knn":
+        out["condensed_size"] = len(model.extras["condensed"])
+        out["loo"] = "exact for every row (the row left out of its own neighbour list by position)"
+    elif model.family == "perceptron":
+        out["updates"] = int(model.extras["updates"])
+        out["loo"] = "exact: refits of the update rows; other rows keep their training prediction"
+    elif model.family == "logistic":
+        out["influence"] = "Cook's distance (Pregibon 1981)"
+        out["influence_threshold"] = float(model.extras["influence_threshold"])
+        out["threshold_rule"] = "4 / m (common practice)"
+        out["refit_band"] = float(model.extras["refit_band"])
+        out["loo"] = (
+            "one Newton step from the full fit for every row (Rad & Maleki 2020); exact warm-started "
+            f"refits for rows within {model.extras['refit_band']} of zero, the influential rows and rows "
+            "the step says flip another row"
+        )
+    else:
+        out["loo"] = "exact: refits of the support rows; other rows keep their training prediction"
+    return out
 
 
 def _learner_params(params: dict[str, Any], prepared: Prepared) -> dict[str, Any]:
@@ -360,6 +501,7 @@ def build_findings(
     y = model.y
     d = int(model.support.sum())
     bounds = bounds_summary(prepared, model, loo, rows, spec.insight.delta, static)
+    tr_mask = prepared.train
     counts = np.bincount(y, minlength=len(prepared.classes))
     summary: dict[str, Any] = {
         "holdfast_version": __version__,
@@ -381,6 +523,8 @@ def build_findings(
         "training_errors": int((model.prediction != y).sum()),
         "loo_errors": int(((loo.loo_code != y) & ~_pending(pending, m)).sum()),
         "loo_exact": bool(model.loo_exact),
+        "loo_exact_rows": int(rows["loo_exact"].to_numpy(dtype=bool)[tr_mask].sum()),
+        "family": family_summary(model, m),
         "solver_tol": model.params.get("tol"),
         "flags": {name: int(rows[f"flag_{name}"].sum()) for name in FLAG_REASONS},
         "bounds": bounds,

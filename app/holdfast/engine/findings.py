@@ -21,15 +21,22 @@ ROW_COLUMNS: dict[str, str] = {
     "label": "the label given in the data",
     "prediction": "prediction of the model trained on all training rows",
     "loo_prediction": (
-        "prediction of the model trained without this row (exact for SVM); held-out rows: the trained model's"
+        "prediction of the model trained without this row (see loo_exact); held-out rows: the trained model's"
     ),
     "loo_miss": "LOO prediction differs from the label (held-out rows: the trained model's error)",
-    "support": "row is in the support set (compression set) of the fitted model",
+    "support": (
+        "row is one of the family's support rows (summary family.support_name: support vectors, critical"
+        " neighbours, update set, influential rows)"
+    ),
     "essential": "removing the row changes the model",
-    "bounded": "SVM: dual weight alpha at its upper limit C",
-    "alpha": "dual weight (0 outside the support set)",
+    "bounded": "SVM: dual weight alpha at its upper limit C (False for other families)",
+    "alpha": (
+        "SVM: dual weight (0 outside the support set); perceptron: updates the row caused; 0 for k-NN and"
+        " logistic regression (summary family.columns lists where it means something)"
+    ),
     "margin": "y * f(x): positive when the training prediction agrees with the label",
     "loo_margin": "y * f(x) under the model trained without this row: negative for a LOO miss",
+    "loo_exact": "the LOO prediction and margin are exact (False: a one-step approximation, logistic only)",
     "flip_count": "how many other training rows change predicted class when this row is left out",
     "score": (
         "suspicion score, higher = look first: -clip(LOO margin, -2, 2) + 0.5 x neighbour dissent"

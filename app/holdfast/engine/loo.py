@@ -3,6 +3,10 @@
 A row outside the support set leaves the fitted model unchanged when removed, so its LOO prediction is
 its training prediction and its flip count is 0. Each support row gets one refit without it
 (Vapnik 1995, *The Nature of Statistical Learning Theory*: hence LOO errors <= number of support rows).
+
+Families for which that shortcut does not hold for the other rows (k-NN: a training row is its own
+nearest neighbour; logistic regression: every row has some weight) hand over LOO results they computed
+themselves (``FittedModel.direct_loo``); the engine starts from those and overwrites the refitted rows.
 """
 
 from __future__ import annotations
@@ -37,6 +41,8 @@ class LooResult:
     #: y * f_{-i}(x_i) per row: the LOO decision value signed by the label (training margin outside the
     #: refitted rows, whose removal leaves the model unchanged)
     loo_margin: np.ndarray | None = None
+    #: per row: the LOO prediction and margin are exact (False where the learner approximated them)
+    exact: np.ndarray | None = None
     refits: int = 0
     resumed: int = 0
 
@@ -127,18 +133,30 @@ def assemble_loo(
     the caller (the provisional findings show them as missing).
     """
     m = model.y.shape[0]
-    loo_code = model.prediction.copy()
-    flip_count = np.zeros(m, dtype=np.int64)
-    essential = np.zeros(m, dtype=bool)
+    direct = model.direct_loo
     max_change = np.full(m, np.nan)
-    loo_margin = np.asarray(model.margin, dtype=np.float64).copy()
     pending = np.zeros(m, dtype=bool)
-    flipped: dict[int, np.ndarray] = {}
+    if direct is None:
+        loo_code = model.prediction.copy()
+        flip_count = np.zeros(m, dtype=np.int64)
+        essential = np.zeros(m, dtype=bool)
+        loo_margin = np.asarray(model.margin, dtype=np.float64).copy()
+        exact = np.full(m, bool(model.loo_exact))
+        flipped: dict[int, np.ndarray] = {}
+    else:  # the learner's own LOO results, overwritten below where a refit exists
+        loo_code = np.asarray(direct.code, dtype=np.int64).copy()
+        flip_count = np.asarray(direct.flip_count, dtype=np.int64).copy()
+        essential = np.asarray(direct.essential, dtype=bool).copy()
+        loo_margin = np.asarray(direct.margin, dtype=np.float64).copy()
+        exact = np.asarray(direct.exact, dtype=bool).copy()
+        flipped = {int(r): v for r, v in direct.flipped.items()}
     for r in model.loo_candidates():
         o = done.get(int(r))
         if o is None:
             pending[r] = True
             continue
+        exact[r] = True
+        flipped.pop(int(r), None)
         loo_code[r] = o.loo_code
         loo_margin[r] = o.loo_margin
         flip_count[r] = len(o.flipped)
@@ -153,5 +171,6 @@ def assemble_loo(
         max_change=max_change,
         flipped=flipped,
         loo_margin=loo_margin,
+        exact=exact,
     )
     return result, pending

@@ -32,6 +32,23 @@ _CONSTANT_RTOL = 1e-10
 _SEARCH_RTOL = 1e-9
 
 
+def _family_words(family: dict[str, Any]) -> dict[str, Any]:
+    """RowDetail's family fields from the summary's ``family`` object (SVM words when it is missing)."""
+    name = family.get("name", "svm")
+    singular = {
+        "support vectors": "support row",
+        "critical neighbours": "critical neighbour",
+        "update set": "update row",
+        "influential rows": "influential row",
+    }
+    return {
+        "support_name": singular.get(family.get("support_name", ""), "support row"),
+        "family_columns": tuple(family.get("columns", ("alpha", "bounded"))),
+        "alpha_name": "updates" if name == "perceptron" else "alpha",
+        "support_is_compression": name in ("svm", "perceptron"),
+    }
+
+
 @dataclass
 class RowDetail:
     """One row explained. Labels and predictions are the data set's label values as text.
@@ -71,6 +88,14 @@ class RowDetail:
     loo_margin: float = float("nan")
     linear_logit: float = float("nan")
     extra: dict[str, Any] = field(default_factory=dict)
+    #: the learner family's words and columns (summary ``family``): what a support row is called, which
+    #: of alpha/bounded mean something, what alpha holds; whether this row's LOO is exact
+    support_name: str = "support row"
+    family_columns: tuple[str, ...] = ("alpha", "bounded")
+    alpha_name: str = "alpha"
+    loo_exact: bool = True
+    #: True when leaving out a row outside the support set changes nothing (SVM, perceptron)
+    support_is_compression: bool = True
 
 
 def _text(values: Any) -> np.ndarray:
@@ -153,6 +178,7 @@ class DetailContext:
         arrays = {
             "margin": _column(rows, "margin", np.nan, float),
             "loo_margin": _column(rows, "loo_margin", np.nan, float),
+            "loo_exact": _column(rows, "loo_exact", True, bool),
             "linear_logit": _column(rows, "linear_logit", np.nan, float),
             "alpha": _column(rows, "alpha", 0.0, float),
             "support": _column(rows, "support", False, bool),
@@ -376,6 +402,8 @@ class DetailContext:
             twin_conflicts=int(a["twin_conflicts"][position]),
             loo_margin=float(a["loo_margin"][position]),
             linear_logit=float(a["linear_logit"][position]),
+            **_family_words(self.scan.findings.summary.get("family") or {}),
+            loo_exact=bool(a["loo_exact"][position]),
         )
 
 

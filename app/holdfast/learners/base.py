@@ -12,6 +12,28 @@ from typing import Any, Protocol
 
 import numpy as np
 
+#: What "support rows" means for each family, in the words the faces show.
+SUPPORT_MEANING: dict[str, dict[str, str]] = {
+    "svm": {
+        "name": "support vectors",
+        "meaning": "rows with a non-zero dual weight: the model is determined by them alone",
+    },
+    "knn": {
+        "name": "critical neighbours",
+        "meaning": "rows whose removal changes the predicted class of at least one other training row",
+    },
+    "perceptron": {
+        "name": "update set",
+        "meaning": (
+            "rows that caused a weight update: rerunning on them alone, in order, gives the same weights"
+        ),
+    },
+    "logistic": {
+        "name": "influential rows",
+        "meaning": "rows with the largest influence on the fit (Cook's distance above its threshold)",
+    },
+}
+
 
 def signed_margins(decision: np.ndarray, y: np.ndarray) -> np.ndarray:
     """y * f(x) for many rows: two-class decision values signed by the label (+1 for class code 1), or
@@ -42,8 +64,34 @@ class RefitOutcome:
 
 
 @dataclass
+class DirectLoo:
+    """LOO results a learner computed itself, without refits through the engine (arrays over m rows).
+
+    The engine starts from these and overwrites the rows it refits (``FittedModel.loo_candidates``).
+    ``exact`` says per row whether ``code``/``margin`` are exact (k-NN: every row; logistic regression:
+    an approximation for the rows not refitted); ``flip_count``/``flipped`` are the other training rows
+    whose predicted class changes without the row, ``essential`` whether the row's removal changes the
+    model's predictions at all.
+    """
+
+    code: np.ndarray
+    margin: np.ndarray
+    exact: np.ndarray
+    flip_count: np.ndarray
+    essential: np.ndarray
+    flipped: dict[int, np.ndarray] = field(default_factory=dict)
+
+
+@dataclass
 class FittedModel:
-    """Fitted state shared by all learner families (arrays over the m training rows)."""
+    """Fitted state shared by all learner families (arrays over the m training rows).
+
+    ``support`` marks the family's support rows (see ``SUPPORT_MEANING``); ``alpha`` and ``bounded`` are
+    dual weights and their limit, meaningful for the SVM only (zeros/False elsewhere). ``direct_loo``
+    holds LOO results the learner computed directly (None: a row outside ``loo_candidates()`` keeps its
+    training prediction); ``refit_rows``, when set, are the rows the engine refits instead of the
+    support rows.
+    """
 
     family: str
     params: dict[str, Any]
@@ -56,9 +104,14 @@ class FittedModel:
     bounded: np.ndarray
     loo_exact: bool = True
     extras: dict[str, Any] = field(default_factory=dict)
+    direct_loo: DirectLoo | None = None
+    refit_rows: np.ndarray | None = None
 
     def loo_candidates(self) -> np.ndarray:
-        """Training rows whose removal can change the model: exact LOO refits exactly these."""
+        """The rows the engine refits: ``refit_rows`` when the learner set them, else the support rows
+        (the rows whose removal can change the model)."""
+        if self.refit_rows is not None:
+            return np.asarray(self.refit_rows, dtype=np.int64)
         return np.flatnonzero(self.support)
 
 

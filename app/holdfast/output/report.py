@@ -39,8 +39,8 @@ TOP_ROWS = 30
 CAUTIONS: tuple[str, ...] = (
     "Flags are statistical evidence, not proof of a wrong label; in regulated or safety-relevant data "
     "(medical, credit, safety), label changes follow the domain's own review and local rules.",
-    "The LOO errors are exact refits of the support rows with the solver tolerance shown; a different "
-    "tolerance may move the counts slightly.",
+    "The LOO errors come from the method the summary names (family, LOO); where they are refits, a "
+    "different solver tolerance may move the counts slightly.",
     "The xi-alpha count is an upper bound on the LOO errors under its theorem (Joachims 2000, Estimating "
     "the generalization performance of a SVM efficiently, ICML); the span estimate (Vapnik & Chapelle "
     "2000, Bounds on error expectation for support vector machines, Neural Computation 12(9)) is an "
@@ -129,19 +129,43 @@ def _summary(scan: Scan) -> list[str]:
     learner = s.get("learner", {})
     params = ", ".join(
         f"{k}={learner[k]:.4g}" if isinstance(learner[k], float) else f"{k}={learner[k]}"
-        for k in ("family", "kernel", "C", "gamma", "degree", "class_weight", "tol")
+        for k in (
+            "family",
+            "kernel",
+            "C",
+            "gamma",
+            "degree",
+            "class_weight",
+            "k",
+            "weights",
+            "metric",
+            "epochs",
+            "intercept",
+            "tol",
+        )
         if k in learner
     )
+    family = s.get("family") or {}
+    if family.get("name", "svm") == "svm":
+        support = f"{s['d']} ({s['bounded']} bounded, {s['d'] - s['bounded']} free)"
+    else:  # what "support rows" means for this family
+        meaning = f"{family.get('support_name', '')}: {family.get('support_meaning', '')}"
+        support = f"{s['d']} ({md_escape(meaning)})"
+    loo_kind = "exact" if s.get("loo_exact") else "approximate"
+    if not s.get("loo_exact") and "loo_exact_rows" in s:
+        loo_kind += f"; {s['loo_exact_rows']} of {s['m']} rows exact"
     rows = [
         ["data", md_escape(s.get("data", {}).get("path", scan.data_path))],
         ["data fingerprint", md_escape(s.get("data", {}).get("fingerprint", ""))],
         ["learner", md_escape(params)],
         ["rows (training) m", _num(s["m"])],
-        ["support rows d", f"{s['d']} ({s['bounded']} bounded, {s['d'] - s['bounded']} free)"],
+        ["support rows d", support],
         ["training errors", _num(s["training_errors"])],
-        ["LOO errors", f"{s['loo_errors']} ({'exact' if s.get('loo_exact') else 'approximate'})"],
+        ["LOO errors", f"{s['loo_errors']} ({loo_kind})"],
         ["class counts", ", ".join(f"{md_escape(c)}: {n}" for c, n in s.get("class_counts", {}).items())],
     ]
+    if family.get("loo") and family.get("name", "svm") != "svm":
+        rows.append(["how the LOO was computed", md_escape(family["loo"])])
     if s.get("held_out"):
         h = s["held_out"]
         rows.append(["held-out rows", f"{h['n']} ({h['errors']} errors, {h['error_rate']:.4f})"])
@@ -167,7 +191,8 @@ def _bounds(scan: Scan) -> list[str]:
             )
             continue
         detail = []
-        for k in ("count", "k", "n", "errors", "misses_outside", "count_bounded_as_errors"):
+        keys = ("count", "k", "n", "errors", "misses_outside", "count_bounded_as_errors", "size", "updates")
+        for k in keys:
             if k in item:
                 detail.append(f"{k}={_num(item[k])}")
         if item.get("note"):
@@ -189,6 +214,9 @@ def _bounds(scan: Scan) -> list[str]:
 
 
 def _explanation(scan: Scan) -> list[str]:
+    family = scan.findings.summary.get("family") or {}
+    if family.get("name", "svm") != "svm":  # the composition below (bounded / free) is the SVM's
+        return []
     e = scan.findings.summary.get("explanation")
     if not e:
         from holdfast.insight.explain import explain_scan

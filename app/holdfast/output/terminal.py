@@ -26,16 +26,25 @@ def summary_text(summary: dict[str, Any]) -> str:
     held = summary.get("held_out")
     m = int(summary["m"])
     free = summary["d"] - summary["bounded"]
+    family = summary.get("family") or {}
     kind = "exact" if summary["loo_exact"] else "approximate"
+    if not summary["loo_exact"] and "loo_exact_rows" in summary:
+        kind = f"approximate; {summary['loo_exact_rows']} of {m} rows exact"
     loo = int(summary["loo_errors"])
+    if family.get("name", "svm") == "svm":
+        support = f"{summary['d']}  ({summary['bounded']} bounded, {free} free)"
+    else:  # what "support rows" means for this family
+        meaning = f"{family.get('support_name', '')}: {family.get('support_meaning', '')}"
+        support = f"{summary['d']}  {safe_text(meaning)}"
     pairs: list[tuple[str, str]] = [
         ("rows (training)", f"{m}" + (f"   held out {held['n']}" if held else "")),
-        ("support rows d", f"{summary['d']}  ({summary['bounded']} bounded, {free} free)"),
+        ("support rows d", support),
         ("training errors", f"{summary['training_errors']}"),
         ("LOO errors", f"{loo}  ({kind}; error rate {loo / m:.4f})" if m else f"{loo}  ({kind})"),
     ]
     same = same_support_and_loo_bound(b)
-    for key in ("support_fraction", "loo_bound", "xi_alpha", "span", "compression", "test_set"):
+    keys = ("support_fraction", "loo_bound", "xi_alpha", "span", "compression", "compression_condensed")
+    for key in (*keys, "novikoff", "test_set"):
         if key in b:
             item = b[key]
             name, note = item["name"], item.get("note", "")
@@ -43,7 +52,9 @@ def summary_text(summary: dict[str, Any]) -> str:
                 continue
             if same and key == "support_fraction":
                 name, note = f"{name} = {b['loo_bound']['name']}", "no LOO miss outside the support set"
-            pairs.append((name, f"{item['value']:.4f}   {note}".rstrip()))
+            value = item.get("value")
+            shown = "n/a" if value is None else (f"{value:.1f}" if key == "novikoff" else f"{value:.4f}")
+            pairs.append((name, f"{shown}   {note}".rstrip()))
     if held:
         pairs.append(("held-out errors", f"{held['errors']} of {held['n']}  ({held['error_rate']:.4f})"))
     flags = {k: v for k, v in (summary.get("flags") or {}).items() if v}
@@ -51,7 +62,8 @@ def summary_text(summary: dict[str, Any]) -> str:
         pairs.append(("flags", ", ".join(f"{safe_text(k)} {int(v)}" for k, v in flags.items())))
     width = max(len(name) for name, _ in pairs) + 2
     lines = [f"{name:<{width}}{value}" for name, value in pairs]
-    lines += explanation_lines(summary.get("explanation"))
+    if family.get("name", "svm") == "svm":  # the composition of d is the SVM's (bounded / free)
+        lines += explanation_lines(summary.get("explanation"))
     return "\n".join(lines)
 
 

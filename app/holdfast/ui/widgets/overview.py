@@ -150,7 +150,8 @@ class OverviewPanel(VerticalScroll):
         parts: list[RenderableType] = [Columns(blocks)]
         explanation = summary.get("explanation")
         if explanation:
-            parts += [Text(""), *self._explanation_block(explanation)]
+            svm = (summary.get("family") or {}).get("name", "svm") == "svm"
+            parts += [Text(""), *self._explanation_block(explanation, composition=svm)]
         body.update(Group(*parts))
 
     # -- blocks ---------------------------------------------------------------------------------------
@@ -202,12 +203,19 @@ class OverviewPanel(VerticalScroll):
         out: list[RenderableType] = [self._heading("Support rows and errors")]
         out.append(self._pair("m", _count(m), "training rows"))
         share = f"{int(d) / int(m):.1%} of m" if m and d is not None else ""
+        family = s.get("family") or {}
         out.append(self._pair("support rows d", _count(d), share))
-        out.append(self._pair("bounded", _count(s.get("bounded")), f"free {_count(s.get('free'))}"))
+        if family.get("name", "svm") != "svm":  # what "support rows" means for this family
+            meaning = f"{family.get('support_name', '')}: {family.get('support_meaning', '')}"
+            out.append(Text(safe_text(meaning), style=self._s("muted")))
+        if "bounded" in family.get("columns", ("bounded",)):
+            out.append(self._pair("bounded", _count(s.get("bounded")), f"free {_count(s.get('free'))}"))
         if "essential" in s:
             out.append(self._pair("essential", _count(s.get("essential"))))
         out.append(self._pair("training errors", _count(s.get("training_errors"))))
         kind = "exact" if s.get("loo_exact", True) else "approximate"
+        if not s.get("loo_exact", True) and "loo_exact_rows" in s:
+            kind += f", {_count(s['loo_exact_rows'])} exact"
         out.append(self._pair(f"LOO errors ({kind})", _count(s.get("loo_errors")), style=self._s("warning")))
         held = s.get("held_out")
         if held:
@@ -236,7 +244,8 @@ class OverviewPanel(VerticalScroll):
             source = safe_text(item.get("source", "") or "")
             if not self.full:  # compact: value and "Author Year"; note and whole source are one key (v) away
                 note, source = "", source.split(",")[0]
-            out.append(self._pair(safe_text(item.get("name", key)), fmt_number(value, ".4f"), note))
+            shown = fmt_number(float("nan") if value is None else value, ".4f")  # None: does not apply
+            out.append(self._pair(safe_text(item.get("name", key)), shown, note))
             if source:
                 out.append(Padding(Text(source, style=self._s("muted")), (0, 0, 0, 2)))
         if len(out) == 1:
@@ -269,12 +278,12 @@ class OverviewPanel(VerticalScroll):
             out += [Text(""), heading, bars]
         return out
 
-    def _explanation_block(self, e: Any) -> list[RenderableType]:
+    def _explanation_block(self, e: Any, composition: bool = True) -> list[RenderableType]:
         out: list[RenderableType] = [self._heading("Why the support set is this size")]
         if not isinstance(e, Mapping):
             return [*out, Text(safe_text(e))]
         comp = e.get("composition") or {}
-        if comp:
+        if comp and composition:  # bounded / free: the SVM's composition of d
             line = Text()
             line.append(f"d {_count(comp.get('d', e.get('d')))} = ", style=self._s("muted"))
             line.append(f"{_count(comp.get('bounded_misclassified'))} bounded and misclassified + ")

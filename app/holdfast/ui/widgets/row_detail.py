@@ -185,19 +185,23 @@ class RowDetailPanel(ScrollView):
         if d.held_out:
             out += wrap([("held-out row: never trained on", "muted")], width)
         elif d.support:
-            kinds = ["support row", "bounded" if d.bounded else "free"] + (
-                ["essential"] if d.essential else []
+            kinds = [d.support_name] + (
+                ["bounded" if d.bounded else "free"] if "bounded" in d.family_columns else []
             )
+            kinds += ["essential"] if d.essential else []
+            alpha = f"   {d.alpha_name} {fmt_number(d.alpha, '.4g')}" if "alpha" in d.family_columns else ""
             out += wrap(
-                [
-                    (" · ".join(kinds), ""),
-                    (f"   alpha {fmt_number(d.alpha, '.4g')}   flips {d.flip_count:,}", "muted"),
-                ],
+                [(" · ".join(kinds), ""), (f"{alpha}   flips {d.flip_count:,}", "muted")],
                 width,
                 indent=2,
             )
-        else:
-            out += wrap([("not a support row: leaving it out changes nothing", "muted")], width, indent=2)
+        elif d.support_is_compression:
+            text = f"not a {d.support_name}: leaving it out changes nothing"
+            out += wrap([(text, "muted")], width, indent=2)
+        else:  # k-NN, logistic: every row counts a little; the family's words say what was measured
+            out += wrap([(f"not a {d.support_name}   flips {d.flip_count:,}", "muted")], width, indent=2)
+        if not d.loo_exact:
+            out += wrap([("LOO approximate (one Newton step; not refitted)", "muted")], width, indent=2)
         out += wrap([("prediction with all rows ", "muted"), (safe_text(d.prediction or DASH), "")], width, 2)
         if decision:
             out += wrap([("decision ", "muted"), (safe_text(decision), "decision")], width, indent=2)
