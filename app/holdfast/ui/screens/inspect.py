@@ -50,7 +50,7 @@ TABLE_COLUMNS: tuple[ColumnSpec, ...] = (
     ColumnSpec("label", "label", None, "left"),
     ColumnSpec("loo_prediction", "LOO pred", None, "left"),
     ColumnSpec("decision", "decision", 20, "left"),
-    ColumnSpec("score", "score", 7, "right", lambda v: format_float(v, ".3f")),
+    ColumnSpec("score", "score", 8, "right", lambda v: format_float(v, ".3f")),
     ColumnSpec("flag_names", "flags", 38, "left", lambda v: format_text(v).replace(",", " ")),
     ColumnSpec("flip_count", "flips", 5, "right"),
     ColumnSpec("margin", "margin", 7, "right", lambda v: format_float(v, "+.2f")),

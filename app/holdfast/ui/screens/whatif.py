@@ -16,7 +16,7 @@ from rich.table import Table
 from rich.text import Text
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
-from textual.containers import Vertical
+from textual.containers import VerticalScroll
 from textual.screen import Screen
 from textual.widgets import Footer, Static
 
@@ -127,7 +127,7 @@ class WhatIfScreen(Screen[None]):
             if isinstance(changed, pd.DataFrame)
             else pd.DataFrame(columns=[c.key for c in CHANGED_COLUMNS])
         )
-        with Vertical(id="what-if-body"):
+        with VerticalScroll(id="what-if-body"):
             yield Static(
                 Text(
                     f"What-if: the model refitted with your decisions applied "
@@ -135,9 +135,9 @@ class WhatIfScreen(Screen[None]):
                 ),
                 classes="help-title",
             )
-            yield Static(comparison_table(list(getattr(r, "comparison", []) or [])), id="what-if-comparison")
             caution = getattr(r, "caution", "") or WHATIF_CAUTION
             yield Static(Text(safe_text(caution)), id="what-if-caution", classes="caution")
+            yield Static(comparison_table(list(getattr(r, "comparison", []) or [])), id="what-if-comparison")
             notes = [safe_text(n) for n in getattr(r, "notes", []) or []]
             unmatched = list(getattr(r, "unmatched", []) or [])
             if unmatched:
@@ -158,7 +158,7 @@ class WhatIfScreen(Screen[None]):
             yield Static(
                 "Nothing here is saved or exported: it is a preview. escape goes back.", classes="dialog-hint"
             )
-        yield Footer()
+        yield Footer(show_command_palette=False)
 
     def on_mount(self) -> None:
         self.query_one("#what-if-changed", RowTable).focus()

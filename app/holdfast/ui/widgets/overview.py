@@ -162,6 +162,13 @@ class OverviewPanel(VerticalScroll):
         blocks = [self._data_block(summary), self._support_block(summary), self._bounds_block(summary)]
         blocks.append(self._classes_block(summary, margin_hist))
         parts: list[RenderableType] = [Columns(blocks)]
+        if summary.get("provisional"):
+            done, total = int(summary.get("loo_done", 0)), int(summary.get("loo_total", 0))
+            note = (
+                f"Provisional: the LOO figures cover the {done:,} of {total:,} refits done so far; "
+                "rows still waiting count by their full-fit margin."
+            )
+            parts.insert(0, Text(note, style=self._s("warning")))
         explanation = summary.get("explanation")
         if explanation:
             parts += [Text(""), *self._explanation_block(explanation)]
