@@ -268,8 +268,32 @@ def test_second_connection_sees_commits(tmp_path: Path) -> None:
     with make(path) as a, Journal.open(path) as b:
         a.record("c1", "defer")
         assert state(b) == {"c1": ("defer", None, None)}
-        b.undo()  # undo works on the shared history, whichever connection wrote it
-        assert state(a) == {}
+        a.undo()  # each copy undoes its own actions
+        assert state(b) == {}
+
+
+def test_undo_never_undoes_another_openers_acknowledged_decision(tmp_path: Path) -> None:
+    # the case of two inspectors on one session: A confirms, B excludes another row, A presses undo
+    path = tmp_path / "s.holdfast.db"
+    with make(path) as a, Journal.open(path) as b:
+        a.record("c1", "confirm")
+        b.record("c2", "exclude")
+        with pytest.raises(SessionError, match=r"another open copy of this session"):
+            a.undo()
+        assert state(a) == {"c1": ("confirm", None, None), "c2": ("exclude", None, None)}
+        with pytest.raises(SessionError, match=r"s\.holdfast\.db"):
+            a.redo() or a.undo()  # redo has nothing to redo; undo still refuses B's action
+        b.undo()  # B may undo its own exclusion; then A's own confirm is on top again
+        a.undo()
+        assert state(b) == {}
+
+
+def test_actions_of_earlier_sessions_stay_undoable(tmp_path: Path) -> None:
+    path = tmp_path / "s.holdfast.db"
+    with make(path) as a:
+        a.record("c1", "confirm")
+    with Journal.open(path) as later:  # reopened after the first copy closed: its history is ours
+        assert later.undo() and state(later) == {}
 
 
 # ----------------------------------------------------------------------------- reconcile

@@ -188,11 +188,13 @@ def test_balanced_class_weights_match_leave_one_out(cancer_subsample, limit):
     assert np.array_equal(result.flip_count[rows], _reference_flips(X, y, learner, model.prediction, rows))
 
 
-def test_a_refit_whose_intercept_is_not_unique_matches_a_full_refit():
+@pytest.mark.parametrize("solver", ["own", "libsvm"])
+def test_a_refit_whose_intercept_is_not_unique_matches_a_full_refit(solver):
     """A case hypothesis found (1-D, linear, C=10): without row 13 every support row of the full refit is
     bounded and a whole interval of intercepts is optimal; the working-set solve had found a free row at
     one end of it, the full refit takes its middle, and three near-zero predictions differed. The refit
-    now notices the flat objective and solves the whole problem (the reference is scikit-learn's SVC)."""
+    now notices the flat objective and solves the whole problem (the reference is scikit-learn's SVC).
+    Checked on both refit engines: our warm-started solver and the libsvm working-set solve."""
     x = [
         -1.110751114509097, 0.10050799041473951, 1.7415482047117106, 0.11662117265537934,
         -0.9625645476589045, -1.5330523275390278, 1.0872205360460692, -0.9845946860616286,
@@ -204,10 +206,13 @@ def test_a_refit_whose_intercept_is_not_unique_matches_a_full_refit():
     ]  # fmt: skip
     X = np.array(x).reshape(-1, 1)
     y = np.array([0, 1, 1, 0, 0, 0, 1, 0, 0, 0, 0, 1, 1, 1, 0, 1, 1, 0, 0, 1, 0, 0, 0, 1, 0, 1, 1, 0])
-    learner = SVMLearner(kernel="linear", C=10.0)
+    learner = SVMLearner(kernel="linear", C=10.0, solver=solver)
     model = learner.fit(X, y)
     problem = learner.refit_problem()
-    assert problem.working is not None  # the working-set path is the one under test
+    if solver == "own":
+        assert problem.alpha is not None  # the warm-start path is the one under test
+    else:
+        assert problem.working is not None  # the working-set path is the one under test
     result = exact_loo(model, problem)
     sv = np.flatnonzero(model.support)
     assert 13 in sv

@@ -165,7 +165,8 @@ def test_cancel_keeps_partials_and_refits_then_resumes(data, tmp_path, monkeypat
 
 
 def test_partial_feed_is_throttled_and_sends_the_last_state():
-    """A fake clock: 100 refits arrive 0.05 s apart; builds take 0.01 s (then 0.5 s: the interval grows)."""
+    """A fake clock: 100 refits arrive 0.05 s apart; builds take 0.01 s (then 0.5 s: the interval grows,
+    counting from the second build: the first also computes what needs no refit)."""
     now = {"t": 0.0}
     build_cost = {"s": 0.01}
     sent: list[int] = []

@@ -233,7 +233,9 @@ def _plant(X: np.ndarray, y: np.ndarray) -> list[Case]:
     clean_lr = _oof_proba_of_label(X, y) < 0.5
     natural = np.flatnonzero(name_rows["loo_miss"].to_numpy() | clean_lr)
     trusted = np.setdiff1d(np.arange(m), natural)
-    closeness = np.abs(name_rows["margin"].to_numpy())[trusted]
+    # rounded to 1e-4 so the pool's order (and with it the planted rows) does not hang on solver noise: with
+    # raw margins a change of 1e-7 in one margin reordered the pool and planted other rows
+    closeness = np.round(np.abs(name_rows["margin"].to_numpy())[trusted], 4)
     near = trusted[np.argsort(closeness, kind="stable")[: round(BOUNDARY_POOL * m)]]
     n = round(FLIP_SHARE * m)
     out = []
@@ -296,7 +298,8 @@ def test_breast_cancer_recall_goals(planted_cases):
     assert bc.loc["random", "score_trusted"] >= GOAL, bc
     # near-boundary flips: the goal holds once the data set's own 16 natural suspects are set aside
     assert bc.loc["near-boundary", "score_trusted"] >= GOAL, bc
-    # NOT MET on the plain count (0.821 on seeds 0-2): 4-6 natural suspects per seed carry stronger
+    # NOT MET on the plain count (0.786 on seeds 0-2; 0.821 was measured while the planting pool's order
+    # hung on the last digits of the margins, see _plant): 4-6 natural suspects per seed carry stronger
     # evidence than the 24th-best planted row under every ranking tried (see holdfast.insight.score);
-    # still far ahead of the baseline (0.655)
-    assert bc.loc["near-boundary", "score_all"] >= 0.80, bc
+    # still far ahead of the baseline
+    assert bc.loc["near-boundary", "score_all"] >= 0.77, bc

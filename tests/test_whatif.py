@@ -97,8 +97,15 @@ def test_relabelling_the_planted_flips_back_matches_a_direct_fit(scan, data):
         assert changed.loc[ids[i], "label_before"] != changed.loc[ids[i], "label_after"] == truth[i]
     names = {name: (b, a) for name, b, a in w.comparison}
     assert names["LOO errors"] == (loo_before, loo_ref)
-    for key, item in w.after["bounds"].items():
-        assert names[item["name"]][1] == item["value"], key
+    bounds = w.after["bounds"]
+    both = (
+        f"{bounds['support_fraction']['name']} = {bounds['loo_bound']['name']}"  # equal for an SVM: one row
+    )
+    assert names[both] == (w.before["bounds"]["loo_bound"]["value"], bounds["loo_bound"]["value"])
+    assert bounds["loo_bound"]["name"] not in names and bounds["support_fraction"]["name"] not in names
+    for key, item in bounds.items():
+        if key not in ("support_fraction", "loo_bound"):
+            assert names[item["name"]][1] == item["value"], key
     assert list(w.changed.columns) == list(CHANGED_COLUMNS)
 
 
@@ -320,3 +327,20 @@ def test_the_caution_names_the_self_fulfilling_loo_error_and_the_held_out_check(
     counts = f"held-out errors {w.before['held_out']['errors']} -> {w.after['held_out']['errors']}"
     assert counts in w.caution
     assert w.caution in w.text()
+
+
+def test_the_what_if_cache_keeps_the_most_recent_results(tmp_path):
+    import os
+
+    from holdfast.review.whatif import WHATIF_PREFIX, prune_whatif_cache
+
+    for n in range(11):
+        folder = tmp_path / f"{WHATIF_PREFIX}{n:02d}"
+        folder.mkdir()
+        (folder / "summary.json").write_text("{}")
+        os.utime(folder, (1_000_000 + n, 1_000_000 + n))
+    (tmp_path / "refits.sqlite").write_text("")  # the scan's own files stay
+    removed = prune_whatif_cache(tmp_path, keep=8)
+    assert sorted(f.name for f in removed) == [f"{WHATIF_PREFIX}{n:02d}" for n in range(3)]
+    left = sorted(f.name for f in tmp_path.iterdir())
+    assert left == sorted([f"{WHATIF_PREFIX}{n:02d}" for n in range(3, 11)] + ["refits.sqlite"])

@@ -3,6 +3,11 @@
 User mistakes become one line on stderr and exit code 2; an internal error is one line and exit code 1
 (``HOLDFAST_DEBUG=1`` shows the traceback). Results go to files, the human summary to stdout, progress
 and diagnostics to stderr.
+
+Ctrl+C: ``scan`` and ``export`` run their work in a worker thread while the main thread waits, so SIGINT is
+seen at once even while the solver (C code) is busy. The work is asked to stop at its next result; if it
+is still inside the solver two seconds later, the process leaves anyway (every finished refit is already
+committed to the cache, and files are only ever renamed into place complete). Exit code 130.
 """
 
 from __future__ import annotations
@@ -10,12 +15,20 @@ from __future__ import annotations
 import argparse
 import os
 import sys
+import threading
+from collections.abc import Callable
 from pathlib import Path
 
 from holdfast import __version__
 from holdfast.errors import Cancelled, UserError
 from holdfast.output.progress import ProgressBar, end_open_lines
-from holdfast.textsafe import safe_text
+from holdfast.textsafe import clip, safe_text
+
+CANCELLED = "holdfast: cancelled; finished refits are kept and the next run resumes from them"
+#: Set by Ctrl+C while a command's work runs in the worker thread; long work polls it.
+_CANCEL = threading.Event()
+#: Longest message line printed (a longer one is cut in the middle).
+MAX_LINE = 1000
 
 CAUTION = (
     "Flags are statistical evidence, not proof of a wrong label. In regulated or safety-relevant data "
@@ -66,13 +79,21 @@ def cmd_scan(args: argparse.Namespace) -> int:
         if spec.data.label in frame.columns:  # else the scan names the missing column
             label = spec.data.label
             check_relabels(decisions, frame[label], label_column=label, source=str(args.decisions))
+    _check_writable(out, "--out")
+    if not args.no_cache and spec.run.cache:
+        from holdfast.engine.cache import cache_root
+
+        _check_writable(cache_root(), "the scan cache", "; or run with --no-cache")
     scan = run_scan(
         args.data,
         spec,
         progress=None if args.quiet else ProgressBar(),
+        should_cancel=_CANCEL.is_set,
         use_cache=False if args.no_cache else None,
         frame=frame,
     )
+    for warning in scan.prepared.warnings:
+        print(f"holdfast: warning: {safe_text(clip(warning, MAX_LINE))}", file=sys.stderr)
     rows_path, summary_path = scan.findings.write(out)
     print(f"{args.data}: {'from cache; ' if scan.from_cache else ''}wrote {rows_path} and {summary_path}")
     print(summary_text(scan.findings.summary))
@@ -87,12 +108,28 @@ def cmd_scan(args: argparse.Namespace) -> int:
             decisions,
             progress=None if args.quiet else ProgressBar("what-if refits"),
             use_cache=False if args.no_cache else None,
+            should_cancel=_CANCEL.is_set,
         )
         json_path, changed_path = write_whatif(result, out)
         print(f"{args.decisions}: wrote {json_path} and {changed_path}")
         print("\n".join(safe_text(line) for line in result.text().splitlines()))  # ids are data text
     print(CAUTION)
     return 0
+
+
+def _check_writable(folder: Path, what: str, more: str = "") -> None:
+    """Before any long work: ``folder`` exists or can be made, and a file can be created in it."""
+    import tempfile
+
+    from holdfast.atomic import environment_error
+
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        with tempfile.TemporaryFile(dir=folder):
+            pass
+    except OSError as exc:
+        err = environment_error(folder, exc)
+        raise UserError(f"{str(err).replace('cannot write', f'{what} cannot be written', 1)}{more}") from exc
 
 
 def cmd_demo(args: argparse.Namespace) -> int:
@@ -200,6 +237,40 @@ def build_parser() -> argparse.ArgumentParser:
     return p
 
 
+def _in_worker(work: Callable[[], int]) -> int:
+    """Run ``work`` in a worker thread; Ctrl+C in the main thread stops it promptly (module docstring)."""
+    outcome: dict[str, object] = {}
+
+    def run() -> None:
+        try:
+            outcome["code"] = work()
+        except BaseException as exc:  # handed to the main thread as it is
+            outcome["error"] = exc
+
+    _CANCEL.clear()
+    worker = threading.Thread(target=run, name="holdfast-work", daemon=True)
+    worker.start()
+    try:
+        while worker.is_alive():
+            worker.join(0.1)
+    except KeyboardInterrupt:
+        _CANCEL.set()
+        worker.join(2.0)
+        if worker.is_alive():  # inside the solver: leave now, nothing half-written stays visible
+            sys.stdout.flush()
+            print(CANCELLED, file=sys.stderr, flush=True)
+            os._exit(130)
+        raise
+    if "error" in outcome:
+        raise outcome["error"]  # type: ignore[misc]
+    return int(outcome.get("code") or 0)  # type: ignore[call-overload]
+
+
+def _one_line(text: str) -> str:
+    """A message as one literal line of at most ``MAX_LINE`` characters."""
+    return safe_text(clip(text, MAX_LINE))
+
+
 def main(argv: list[str] | None = None) -> int:
     """Entry point of the ``holdfast`` console script."""
     parser = build_parser()
@@ -208,23 +279,22 @@ def main(argv: list[str] | None = None) -> int:
         parser.print_help(sys.stderr)
         return 2
     try:
+        if args.command in ("scan", "export") or (args.command == "demo" and args.no_ui):
+            return _in_worker(lambda: int(args.func(args) or 0))
         return int(args.func(args) or 0)
     except UserError as exc:
         end_open_lines()
-        print(f"holdfast: error: {safe_text(str(exc))}", file=sys.stderr)  # data text: one literal line
+        print(f"holdfast: error: {_one_line(str(exc))}", file=sys.stderr)  # data text: one literal line
         return 2
     except (Cancelled, KeyboardInterrupt):
         end_open_lines()
-        print(
-            "holdfast: cancelled; finished refits are kept and the next run resumes from them",
-            file=sys.stderr,
-        )
+        print(CANCELLED, file=sys.stderr)
         return 130
     except Exception as exc:
         end_open_lines()
         if os.environ.get("HOLDFAST_DEBUG"):
             raise
-        first = safe_text(str(exc).splitlines()[0]) if str(exc) else ""
+        first = _one_line(str(exc).splitlines()[0]) if str(exc) else ""
         print(
             f"holdfast: internal error: {exc.__class__.__name__}: {first} (HOLDFAST_DEBUG=1 shows more)",
             file=sys.stderr,

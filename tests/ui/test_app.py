@@ -578,6 +578,7 @@ async def test_what_if_shows_the_refit_with_the_decisions_applied(ds: DataSet) -
         await pilot.press("y")
         await pilot.press("w")
         await until(pilot, lambda: isinstance(app.screen, WhatIfScreen))
+        await pilot.pause()  # the pushed screen composes on the next turn of the loop
         shown = app.screen.result
         text = screen_text(app)
         # The same refit run directly on the journal's decisions gives the numbers on screen.

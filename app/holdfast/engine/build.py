@@ -114,7 +114,8 @@ def build_rows(
 
     ``evidence``: :func:`quick_evidence`, when already computed. ``pending`` (provisional findings, one
     bool per training row): support rows whose refit has not arrived; their LOO columns are missing
-    (nullable dtypes), their score and rank use the full-fit margin, and a ``loo_pending`` column is added.
+    (nullable dtypes), the flags that need the refit (``loo_miss``, ``heavy_flip``) are not raised yet,
+    their score and rank use the full-fit margin, and a ``loo_pending`` column is added.
     """
     n = len(prepared.frame)
     tr = prepared.train_index

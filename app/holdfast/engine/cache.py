@@ -4,6 +4,9 @@ Layout: ``<cache root>/<data fingerprint>-<spec fingerprint>/`` holding ``refits
 finished refit, committed as results arrive) and, once the scan finished, ``rows.parquet``,
 ``summary.json`` and ``flips.parquet``. The root is ``$HOLDFAST_CACHE_DIR``, else
 ``$XDG_CACHE_HOME/holdfast``, else ``~/.cache/holdfast``.
+
+A cache that cannot be used (folder not writable, disk full, a file that is not a cache file any more) is
+a :class:`holdfast.errors.UserError` naming the file and the way out (``--no-cache``, free space).
 """
 
 from __future__ import annotations
@@ -16,6 +19,7 @@ from pathlib import Path
 import numpy as np
 
 from holdfast import __version__
+from holdfast.errors import UserError
 from holdfast.learners.base import RefitOutcome
 
 #: Bump when the cached findings change shape (new columns or summary keys), so old caches are not reused.
@@ -41,9 +45,16 @@ class RefitStore:
     (other solver, other library version) never reuses stale refits."""
 
     def __init__(self, path: Path, support_key: str) -> None:
-        path.parent.mkdir(parents=True, exist_ok=True)
         self.path = path
-        self.conn = sqlite3.connect(path)
+        try:
+            path.parent.mkdir(parents=True, exist_ok=True)
+            self.conn = sqlite3.connect(path)
+            self._setup(support_key)
+        except (OSError, sqlite3.Error) as exc:
+            self.close()
+            raise cache_error(path, exc) from exc
+
+    def _setup(self, support_key: str) -> None:
         self.conn.execute("PRAGMA journal_mode=WAL")
         self.conn.execute("CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value TEXT)")
         columns = [r[1] for r in self.conn.execute("PRAGMA table_info(refits)")]
@@ -63,6 +74,12 @@ class RefitStore:
 
     def load(self) -> dict[int, RefitOutcome]:
         """All refits stored so far."""
+        try:
+            return self._load()
+        except (sqlite3.Error, ValueError) as exc:
+            raise cache_error(self.path, exc) from exc
+
+    def _load(self) -> dict[int, RefitOutcome]:
         out: dict[int, RefitOutcome] = {}
         for row, loo, change, flipped, margin in self.conn.execute(
             "SELECT row, loo, max_change, flipped, loo_margin FROM refits"
@@ -78,6 +95,12 @@ class RefitStore:
 
     def add(self, outcomes: list[RefitOutcome]) -> None:
         """Commit finished refits."""
+        try:
+            self._add(outcomes)
+        except (OSError, sqlite3.Error) as exc:
+            raise cache_error(self.path, exc) from exc
+
+    def _add(self, outcomes: list[RefitOutcome]) -> None:
         with self.conn:
             self.conn.executemany(
                 "INSERT OR REPLACE INTO refits VALUES (?, ?, ?, ?, ?)",
@@ -95,4 +118,21 @@ class RefitStore:
 
     def close(self) -> None:
         """Close the connection."""
-        self.conn.close()
+        conn = getattr(self, "conn", None)
+        if conn is not None:
+            conn.close()
+
+
+def cache_error(path: Path, exc: BaseException) -> UserError:
+    """One line for a scan cache that cannot be used: the file, the reason, the way out."""
+    text = str(exc) or type(exc).__name__
+    if isinstance(exc, OSError) and exc.strerror:
+        text = exc.strerror
+    low = text.lower()
+    if "full" in low or "no space" in low:
+        fix = "free disk space, or run with --no-cache"
+    elif "not a database" in low or "malformed" in low or "corrupt" in low or isinstance(exc, ValueError):
+        fix = f"delete the folder {path.parent} (it is rebuilt), or run with --no-cache"
+    else:
+        fix = "run with --no-cache, or point HOLDFAST_CACHE_DIR to a writable folder"
+    return UserError(f"{path}: scan cache cannot be used ({text}); {fix}")

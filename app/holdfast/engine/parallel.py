@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import os
 from collections.abc import Callable
+from typing import Any
 
 import numpy as np
 
@@ -17,6 +18,20 @@ from holdfast.learners.base import RefitOutcome, RefitProblem
 def refit_batch(problem: RefitProblem, rows: list[int]) -> list[RefitOutcome]:
     """Refit without each of ``rows`` in turn (one task of a parallel run)."""
     return [problem.refit_without(int(r)) for r in rows]
+
+
+def _one_blas_thread() -> Any:
+    """BLAS on one thread while refits run: the refits are the parallel units, and a refit's small dense
+    solves (a few hundred rows) were 10-100x slower with OpenBLAS threads competing for busy cores."""
+    from threadpoolctl import threadpool_limits
+
+    return threadpool_limits(limits=1, user_api="blas")
+
+
+def _dask_batch(problem: RefitProblem, rows: list[int]) -> list[RefitOutcome]:
+    """``refit_batch`` on a dask worker, with one BLAS thread."""
+    with _one_blas_thread():
+        return refit_batch(problem, rows)
 
 
 def _chunks(rows: np.ndarray, size: int) -> list[list[int]]:
@@ -50,14 +65,26 @@ def run_refits(
     if backend == "dask":
         _run_dask(problem, rows, n_jobs, scheduler, on_results, cancel)
         return
+    with _one_blas_thread():
+        _run_local(problem, rows, n_jobs, on_results, cancel)
+
+
+def _run_local(
+    problem: RefitProblem,
+    rows: np.ndarray,
+    n_jobs: int,
+    on_results: Callable[[list[RefitOutcome]], None],
+    cancel: Callable[[], bool],
+) -> None:
     if n_jobs == 1:
         for r in rows:
             if cancel():
                 raise Cancelled()
             on_results([problem.refit_without(int(r))])
         return
-    # Threads, not processes: libsvm's solver and numpy's kernels release the GIL, the kernel matrix is
-    # shared without copies, nothing starts up, and it works under a terminal UI that replaced stdio.
+    # Threads, not processes: our solver (numba, nogil), libsvm and numpy's kernels release the GIL, the
+    # kernel matrix is shared without copies, nothing starts up, and it works under a terminal UI that
+    # replaced stdio.
     from joblib import Parallel, delayed
 
     size = max(1, min(8, len(rows) // (n_jobs * 8) or 1))
@@ -102,7 +129,7 @@ def _run_dask(
     try:
         shared = client.scatter(problem, broadcast=True)
         size = max(1, min(8, len(rows) // (n_jobs * 8) or 1))
-        futures = [client.submit(refit_batch, shared, chunk, pure=False) for chunk in _chunks(rows, size)]
+        futures = [client.submit(_dask_batch, shared, chunk, pure=False) for chunk in _chunks(rows, size)]
         for fut in as_completed(futures):
             on_results(fut.result())
             if cancel():

@@ -47,9 +47,10 @@ class Scan:
 Partial = Callable[[Findings], None]
 #: shortest time between two provisional findings (seconds) ...
 PARTIAL_INTERVAL = 1.0
-#: ... and at most this share of the scan's time goes into building them (the interval grows with the
-#: time one build takes, so large data sets do not spend their LOO time on provisional frames)
-PARTIAL_SHARE = 0.1
+#: ... and at most about this share of the scan's time goes into building them (the interval grows with
+#: the time one build takes, so large data sets do not spend their LOO time on provisional frames; the
+#: first build, which also computes the estimates that need no refit, does not count)
+PARTIAL_SHARE = 0.2
 
 
 class _PartialFeed:
@@ -81,10 +82,12 @@ class _PartialFeed:
                 return
         if complete and self.sent_done == n:
             return
+        first = self.last is None
         findings = self.build(dict(done))
         self.sent_done = n
         self.last = self.clock()
-        self.cost = self.last - now
+        if not first:
+            self.cost = self.last - now
         self.on_partial(findings)
 
 

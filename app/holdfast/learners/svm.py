@@ -1,4 +1,4 @@
-"""Soft-margin SVM (scikit-learn's SVC, libsvm) with exact leave-one-out by refitting support rows.
+"""Soft-margin SVM with exact leave-one-out by refitting support rows.
 
 Why only support rows: the SVM solution depends on the training rows only through those with a non-zero
 dual weight; removing any other row leaves the optimum unchanged, so its leave-one-out prediction is its
@@ -7,25 +7,38 @@ bound LOO errors <= number of support vectors).
 
 To keep that shortcut exact, everything except the learner is frozen: ``gamma="scale"``/``"auto"`` and
 ``class_weight="balanced"`` are resolved once on the full training matrix and the same numbers are used by
-every refit. The kernel matrix is computed once and sliced for each refit (``kernel="precomputed"``) when
-it fits in memory (``PRECOMPUTE_MAX_ROWS``). Two-class refits solve on a working set (support rows and rows
-near the margin) and then check every other row's optimality condition. Above the limit, the kernel rows of
-the first working set against all rows are computed once instead (``WORKING_ROWS_MAX_BYTES``), and the few
-rows a refit adds to its working set get theirs computed on demand; beyond that budget (or with more than
-two classes) each refit is a full libsvm fit with its own kernel cache: exact, but several times slower.
+every refit. The kernel matrix is computed once (``kernel="precomputed"``) when it fits in memory
+(``PRECOMPUTE_MAX_ROWS``). Then the full fit is our own solver (:mod:`holdfast.learners.smo`; one-vs-one
+machines for more classes, :mod:`holdfast.learners.pairs`) and every refit starts warm from its solution
+(:mod:`holdfast.learners.svm_refit`). Above the limit, scikit-learn's SVC fits the model and two-class
+refits solve on a working set with the kernel rows of the first working set against all rows
+(``WORKING_ROWS_MAX_BYTES``); beyond that budget (or with more than two classes) each refit is a full
+libsvm fit: exact, but slow. ``solver="libsvm"`` gives the SVC engine below the limit too.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from sklearn.metrics.pairwise import polynomial_kernel, rbf_kernel
 from sklearn.svm import SVC
 
 from holdfast.errors import SpecError
-from holdfast.learners.base import FittedModel, RefitOutcome, signed_margins
+from holdfast.learners import smo
+from holdfast.learners.base import FittedModel, signed_margins
+from holdfast.learners.kernels import kernel_matrix, resolve_gamma, row_margin, submatrix
+from holdfast.learners.pairs import PairModel, fit_pairs, pair_decision, vote_codes
+from holdfast.learners.svm_refit import WARM_TOL, DualModel, SVMRefitProblem, tie_tolerance
+
+__all__ = [
+    "SVMLearner",
+    "SVMRefitProblem",
+    "kernel_matrix",
+    "resolve_gamma",
+    "row_margin",
+    "submatrix",
+    "validate_svm_params",
+]
 
 KERNELS = ("linear", "rbf", "poly")
 DEFAULTS: dict[str, Any] = {
@@ -46,12 +59,30 @@ WORKING_ROWS_MAX_BYTES = 2 * 1024**3
 #: 0.2 rather than 0.5: 11-25% less time per refit on the demo data at 3,000-15,000 rows, the same results
 #: (the KKT check adds any row that is needed); 0.0 needs a second solve too often (bench_scan_scale.py).
 WORKING_SET_SLACK = 0.2
+#: Kernel rows cached by our solver when it computes them from X (linear kernel above the limit):
+#: 128 x m float64 per solve (100 MB at 100,000 rows).
+LINEAR_CACHE_ROWS = 128
 #: A refit whose training decision values all move by less than this left the model unchanged.
 ESSENTIAL_TOL = 1e-4
 
 
+#: Accepted ranges of the SVM parameters (ours; common practice). Beyond them a fit on standard-scaled
+#: data takes minutes or never ends, and libsvm's solver cannot be interrupted while it runs: a C above
+#: 1e5 asks for a nearly hard margin on data that is not separable (the solver's iteration count grows
+#: with C), a numeric gamma below 1e-6 makes every kernel value nearly 1 (an ill-conditioned problem) and
+#: one above 1e4 makes every row its own island, and a polynomial degree above 10 overflows the kernel
+#: values of standard-scaled rows. Usual grid searches stay well inside (C 1e-3..1e3, gamma 1e-4..10).
+C_RANGE = (1e-6, 1e5)
+GAMMA_RANGE = (1e-6, 1e4)
+DEGREE_RANGE = (1, 10)
+
+
+def _in_range(value: float, limits: tuple[float, float]) -> bool:
+    return limits[0] <= value <= limits[1]
+
+
 def validate_svm_params(table: dict[str, Any], source: str) -> dict[str, Any]:
-    """Validate the ``[learner]`` table of the svm family and fill in defaults."""
+    """Validate the ``[learner]`` table of the svm family and fill in defaults (ranges: ``C_RANGE``...)."""
     out = {"family": "svm", **DEFAULTS, **{k: v for k, v in table.items() if k != "family"}}
     if out["kernel"] not in KERNELS:
         raise SpecError(
@@ -60,6 +91,11 @@ def validate_svm_params(table: dict[str, Any], source: str) -> dict[str, Any]:
     c = out["C"]
     if isinstance(c, bool) or not isinstance(c, int | float) or not c > 0 or not np.isfinite(c):
         raise SpecError(f"{source}: 'learner.C' must be a positive number, got {c!r}")
+    if not _in_range(c, C_RANGE):
+        raise SpecError(
+            f"{source}: 'learner.C' must be between {C_RANGE[0]:g} and {C_RANGE[1]:g}, got {c!r} "
+            f"(beyond, the fit takes minutes or never ends)"
+        )
     out["C"] = float(c)
     g = out["gamma"]
     if isinstance(g, str):
@@ -71,11 +107,21 @@ def validate_svm_params(table: dict[str, Any], source: str) -> dict[str, Any]:
         raise SpecError(
             f'{source}: \'learner.gamma\' must be "scale", "auto" or a positive number, got {g!r}'
         )
+    elif not _in_range(g, GAMMA_RANGE):
+        raise SpecError(
+            f"{source}: 'learner.gamma' must be between {GAMMA_RANGE[0]:g} and {GAMMA_RANGE[1]:g}, got "
+            f"{g!r} (beyond, the kernel is nearly constant or every row is its own island)"
+        )
     else:
         out["gamma"] = float(g)
     d = out["degree"]
     if isinstance(d, bool) or not isinstance(d, int) or d < 1:
         raise SpecError(f"{source}: 'learner.degree' must be a positive integer, got {d!r}")
+    if not _in_range(d, DEGREE_RANGE):
+        raise SpecError(
+            f"{source}: 'learner.degree' must be between {DEGREE_RANGE[0]} and {DEGREE_RANGE[1]}, got {d!r} "
+            f"(higher degrees overflow the kernel values)"
+        )
     c0 = out["coef0"]
     if isinstance(c0, bool) or not isinstance(c0, int | float) or not np.isfinite(c0):
         raise SpecError(f"{source}: 'learner.coef0' must be a number, got {c0!r}")
@@ -89,227 +135,6 @@ def validate_svm_params(table: dict[str, Any], source: str) -> dict[str, Any]:
         raise SpecError(f"{source}: 'learner.tol' must be a number in (0, 1), got {t!r}")
     out["tol"] = float(t)
     return out
-
-
-def resolve_gamma(gamma: str | float, X: np.ndarray) -> float:
-    """Turn ``"scale"`` (1 / (p * Var(X))) or ``"auto"`` (1 / p) into a number, as scikit-learn's SVC does."""
-    p = X.shape[1]
-    if gamma == "scale":
-        var = float(X.var())
-        return 1.0 / (p * var) if var > 0 else 1.0
-    if gamma == "auto":
-        return 1.0 / p
-    return float(gamma)
-
-
-def kernel_matrix(
-    A: np.ndarray, B: np.ndarray, kernel: str, gamma: float, degree: int, coef0: float
-) -> np.ndarray:
-    """Kernel values K(a, b): linear <a,b>; rbf exp(-gamma |a-b|^2); poly (gamma <a,b> + coef0)^degree."""
-    if kernel == "linear":
-        return A @ B.T
-    if kernel == "rbf":
-        return rbf_kernel(A, B, gamma=gamma)
-    return polynomial_kernel(A, B, degree=degree, gamma=gamma, coef0=coef0)
-
-
-def submatrix(K: np.ndarray, keep: np.ndarray) -> np.ndarray:
-    """``K[keep][:, keep]``; when ``keep`` is all rows but one, built from four block copies (memcpy speed:
-    ~10x faster than fancy indexing at a few thousand rows)."""
-    m = K.shape[0]
-    if len(keep) == m - 1:
-        missing = np.setdiff1d(np.arange(m), keep, assume_unique=True)
-        if len(missing) == 1 and np.all(np.diff(keep) > 0):
-            i = int(missing[0])
-            out = np.empty((m - 1, m - 1), dtype=K.dtype)
-            out[:i, :i] = K[:i, :i]
-            out[:i, i:] = K[:i, i + 1 :]
-            out[i:, :i] = K[i + 1 :, :i]
-            out[i:, i:] = K[i + 1 :, i + 1 :]
-            return out
-    return K[np.ix_(keep, keep)]
-
-
-def row_margin(decision: np.ndarray | float, label: int) -> float:
-    """y * f(x) of one row: the two-class decision value signed by the label (+1 for class code 1), or
-    for more classes its own class's decision value minus the largest other one (as in ``fit``)."""
-    d = np.asarray(decision, dtype=np.float64)
-    if d.ndim == 0:
-        return float(d) if label == 1 else -float(d)
-    return float(d[label] - np.max(np.delete(d, label)))
-
-
-@dataclass
-class SVMRefitProblem:
-    """Self-contained SVM training problem for refits without one row (picklable for joblib/dask)."""
-
-    y: np.ndarray
-    n_classes: int
-    svc_params: dict[str, Any]
-    full_prediction: np.ndarray
-    full_decision: np.ndarray
-    K: np.ndarray | None = None
-    X: np.ndarray | None = None
-    #: initial working set for two-class refits (support rows and rows near the margin), or None
-    working: np.ndarray | None = None
-    #: without K: kernel rows of ``working`` against all training rows (len(working) x m), the position of
-    #: each training row in ``working`` (-1 outside), and (kernel, gamma, degree, coef0) for other rows
-    KW: np.ndarray | None = None
-    w_pos: np.ndarray | None = None
-    kernel_args: tuple[str, float, int, float] | None = None
-
-    def _row_c(self, rows: np.ndarray) -> np.ndarray:
-        """The box limit C (times the class weight) of each row."""
-        weights = self.svc_params.get("class_weight")
-        c = float(self.svc_params["C"])
-        if not weights:
-            return np.full(len(rows), c)
-        per_class = np.array([weights.get(k, 1.0) for k in range(self.n_classes)])
-        return c * per_class[self.y[rows]]
-
-    def _kernel_block(self, rows: np.ndarray, cols: np.ndarray) -> np.ndarray:
-        """Kernel values K(rows, cols): sliced from K or KW, computed for rows outside the working set."""
-        if self.K is not None:
-            return self.K[np.ix_(rows, cols)]
-        assert self.KW is not None and self.w_pos is not None and self.kernel_args is not None
-        pos = self.w_pos[rows]
-        have = pos >= 0
-        out = np.empty((len(rows), len(cols)))
-        out[have] = self.KW[np.ix_(pos[have], cols)]
-        if not have.all():
-            out[~have] = kernel_matrix(self.X[rows[~have]], self.X[cols], *self.kernel_args)  # type: ignore[index]
-        return out
-
-    def _decision_all(self, sv: np.ndarray, coef: np.ndarray, intercept: float) -> np.ndarray:
-        """sum_j coef_j K(sv_j, x) + intercept for every training row x."""
-        if self.K is not None:
-            return coef @ self.K[sv] + intercept  # K symmetric: row gather
-        assert self.KW is not None and self.w_pos is not None and self.kernel_args is not None
-        pos = self.w_pos[sv]
-        have = pos >= 0
-        spread = np.zeros(self.KW.shape[0])
-        spread[pos[have]] = coef[have]
-        dec = spread @ self.KW + intercept  # no |sv| x m copy
-        if not have.all():
-            dec += coef[~have] @ kernel_matrix(self.X[sv[~have]], self.X, *self.kernel_args)  # type: ignore[index]
-        return dec
-
-    def _intercept_is_unique(self, dec: np.ndarray, intercept: float, row: int) -> bool:
-        """True when no other intercept is optimal for the refit's weight vector.
-
-        With w fixed, the primal objective as a function of the intercept b is
-        ``h(b) = sum_i C_i max(0, 1 - y_i (g_i + b))`` (g_i = f(x_i) - intercept), convex and piecewise
-        linear with kinks at t_i = y_i - g_i (Cortes & Vapnik 1995, "Support-vector networks", Machine
-        Learning 20: the soft-margin primal). The optimal b form an interval; when it is wider than a point,
-        several models are optimal and the solver's choice among them depends on every row (libsvm takes
-        the middle of the interval), so a working-set solve may pick another one than a full refit. That
-        happens exactly when h is flat on one side of the solution: a one-sided slope of zero.
-        """
-        y = np.where(self.y == 1, 1.0, -1.0)
-        keep = np.ones(len(y), dtype=bool)
-        keep[row] = False
-        y, t, c = y[keep], (y - (dec - intercept))[keep], self._row_c(np.flatnonzero(keep))
-        eps = 100.0 * float(self.svc_params.get("tol", 1e-6))  # rows this close to the kink sit on it
-        pos, neg = y > 0, y < 0
-        right = -c[pos & (t > intercept + eps)].sum() + c[neg & (t <= intercept + eps)].sum()
-        left = -c[pos & (t > intercept - eps)].sum() + c[neg & (t < intercept - eps)].sum()
-        flat = 1e-9 * float(c.max())
-        return right > flat and left < -flat
-
-    def _fit_without(self, row: int) -> tuple[np.ndarray, np.ndarray | None]:
-        """The whole problem without ``row`` (what a working-set solve falls back to)."""
-        m = self.y.shape[0]
-        return self.fit_predict(np.concatenate([np.arange(row), np.arange(row + 1, m)]))
-
-    def _fit_working_set(self, row: int) -> tuple[np.ndarray, np.ndarray | None]:
-        """Two classes, precomputed kernel: solve on a working set, then add every row outside it that
-        violates its optimality condition (y f(x) >= 1 - tol for alpha = 0) and solve again, until none does.
-
-        A row outside the working set with alpha = 0 that satisfies y f(x) >= 1 already meets the KKT
-        conditions of the full problem, so the result is the optimum of the full problem to the solver's own
-        tolerance (the decomposition argument of Osuna, Freund & Girosi 1997, "An improved training
-        algorithm for support vector machines"; libsvm stops on the same condition).
-        """
-        m = self.y.shape[0]
-        ypm = np.where(self.y == 1, 1.0, -1.0)
-        work = self.working[self.working != row]
-        outside = np.ones(m, dtype=bool)
-        tol = float(self.svc_params.get("tol", 1e-6))
-        while True:
-            y_work = self.y[work]
-            if np.unique(y_work).size < 2:  # too small a working set: solve the whole problem
-                return self._fit_without(row)
-            clf = SVC(kernel="precomputed", **self._precomputed_params())
-            clf.fit(self._kernel_block(work, work), y_work)
-            sv = work[clf.support_]
-            if not np.any(np.abs(clf.dual_coef_[0]) < 0.999 * self._row_c(sv)):
-                # no free support row: the intercept is not unique and libsvm picks it from the bounds of
-                # all rows, so only the whole problem gives the same intercept as a full refit
-                return self._fit_without(row)
-            dec = self._decision_all(sv, clf.dual_coef_[0], float(clf.intercept_[0]))
-            outside[:] = True
-            outside[work] = False
-            outside[row] = False
-            violators = np.flatnonzero(outside & (ypm * dec < 1.0 - tol))
-            if violators.size == 0:
-                if not self._intercept_is_unique(dec, float(clf.intercept_[0]), row):
-                    return self._fit_without(row)
-                pred = np.where(dec > 0, clf.classes_[1], clf.classes_[0]).astype(np.int64)
-                return pred, dec
-            work = np.union1d(work, violators)
-
-    def _precomputed_params(self) -> dict[str, Any]:
-        """The SVC parameters for a precomputed kernel (without the kernel's own parameters)."""
-        return {k: v for k, v in self.svc_params.items() if k not in ("kernel", "gamma", "degree", "coef0")}
-
-    def fit_predict(self, keep: np.ndarray) -> tuple[np.ndarray, np.ndarray | None]:
-        """Fit on rows ``keep``; return predicted codes and decision values for all training rows."""
-        y_keep = self.y[keep]
-        present = np.unique(y_keep)
-        m = self.y.shape[0]
-        if present.size < 2:  # the remaining rows hold one class only: every prediction is that class
-            return np.full(m, present[0], dtype=np.int64), None
-        if self.K is not None:
-            clf = SVC(kernel="precomputed", **self.svc_params)
-            clf.fit(submatrix(self.K, keep), y_keep)
-            if present.size == 2:
-                sv = keep[clf.support_]
-                dec = clf.dual_coef_[0] @ self.K[sv] + clf.intercept_[0]  # K symmetric: row gather
-                pred = np.where(dec > 0, clf.classes_[1], clf.classes_[0]).astype(np.int64)
-                return pred, (dec if self.n_classes == 2 else None)
-            cross = self.K[:, keep]
-        else:
-            params = dict(self.svc_params)
-            clf = SVC(**params)
-            clf.fit(self.X[keep], y_keep)
-            cross = self.X
-            if present.size == 2:
-                dec = clf.decision_function(cross)
-                pred = np.where(dec > 0, clf.classes_[1], clf.classes_[0]).astype(np.int64)
-                return pred, (dec if self.n_classes == 2 else None)
-        dec = clf.decision_function(cross)
-        pred = clf.classes_[np.argmax(dec, axis=1)].astype(np.int64)
-        return pred, (dec if present.size == self.n_classes else None)
-
-    def refit_without(self, row: int) -> RefitOutcome:
-        """Refit without training row ``row``; its LOO prediction, the flipped rows, the largest change."""
-        m = self.y.shape[0]
-        keep = np.concatenate([np.arange(row), np.arange(row + 1, m)])
-        fast = self.K is not None or self.KW is not None
-        if self.working is not None and fast and np.unique(self.y[keep]).size == 2:
-            pred, dec = self._fit_working_set(row)
-        else:
-            pred, dec = self.fit_predict(keep)
-        changed = pred != self.full_prediction
-        changed[row] = False
-        max_change = float(np.max(np.abs(dec - self.full_decision))) if dec is not None else float("inf")
-        return RefitOutcome(
-            row=row,
-            loo_code=int(pred[row]),
-            flipped=np.flatnonzero(changed).astype(np.int64),
-            max_change=max_change,
-            loo_margin=row_margin(dec[row], int(self.y[row])) if dec is not None else float("nan"),
-        )
 
 
 class SVMLearner:
@@ -328,6 +153,7 @@ class SVMLearner:
         tol: float = 1e-6,
         precompute_max_rows: int = PRECOMPUTE_MAX_ROWS,
         working_set: bool = True,
+        solver: str = "own",
     ) -> None:
         self.kernel = kernel
         self.C = C
@@ -338,6 +164,9 @@ class SVMLearner:
         self.tol = tol
         self.precompute_max_rows = precompute_max_rows
         self.working_set = working_set
+        #: "own": two-class fits and refits with our solver (holdfast.learners.smo) when the kernel matrix
+        #: is precomputed; "libsvm": scikit-learn's SVC for every fit (the engine of earlier versions)
+        self.solver = solver
 
     # -- fitting -------------------------------------------------------------------------------------
     def fit(self, X: np.ndarray, y: np.ndarray) -> FittedModel:
@@ -374,16 +203,45 @@ class SVMLearner:
             K=K,
             X=None if K is not None else X,
         )
-        if K is not None:
+        row_c = self.C * (np.array([weights[c] for c in y]) if weights else np.ones(m))
+        clf: SVC | DualModel | PairModel
+        own: DualModel | PairModel | None = None
+        kernel: smo.Kernel | None = None
+        if self.solver == "own" and K is not None:
+            kernel = smo.Kernel(K=K)
+        elif self.solver == "own" and self.kernel == "linear":  # no m x m matrix: K(x_i, .) = X x_i
+            kernel = smo.Kernel(X=X, kind="linear", cache_rows=LINEAR_CACHE_ROWS)
+        if kernel is not None and n_classes == 2:
+            own = self._fit_own(kernel, y, row_c, problem)
+        elif kernel is not None and np.all(np.bincount(y, minlength=n_classes) > 0):
+            own = self._fit_own_pairs(kernel, y, row_c, n_classes, problem)
+        self.svc_on_X_ = False
+        if own is not None and kernel is not None and self._has_tie(own, kernel, problem):
+            # a training decision value within the tie tolerance of 0: the full model is the reference's
+            # own computation (libsvm computing the kernel from X), so that its sign is the reference's;
+            # refits still start warm from our solution (an optimum of the same problem)
+            clf = SVC(kernel=self.kernel, gamma=gamma, degree=self.degree, coef0=self.coef0, **svc_params)
+            clf.fit(X, y)
+            self.svc_on_X_ = True
+        elif own is not None:
+            clf = own
+        elif K is not None:
             clf = SVC(kernel="precomputed", **svc_params).fit(K, y)
         else:
             clf = SVC(**svc_params).fit(X, y)
         self.svc_ = clf
-        decision = self._train_decision(clf, K, X, n_classes)
+        problem.X_ref = X
+        problem.kernel_args = (self.kernel, gamma, self.degree, self.coef0)
+        if own is not None and clf is own:
+            decision = own.train_decision
+        else:
+            decision = self._train_decision(clf, None if self.svc_on_X_ else K, X, n_classes)
         prediction = self._codes(decision, clf.classes_)
+        if self.svc_on_X_:
+            prediction = np.asarray(clf.predict(X), dtype=np.int64)  # libsvm's own vote, as the reference
         problem.full_prediction = prediction
         problem.full_decision = decision
-        if n_classes == 2 and self.working_set:
+        if n_classes == 2 and self.working_set and problem.alpha is None:
             ypm = np.where(y == 1, 1.0, -1.0)
             near = np.flatnonzero(
                 (ypm * decision < 1.0 + WORKING_SET_SLACK) | np.isin(np.arange(m), clf.support_)
@@ -404,7 +262,6 @@ class SVMLearner:
         alpha = np.zeros(m)
         coef = np.abs(clf.dual_coef_)
         alpha[clf.support_] = coef.max(axis=0)
-        row_c = self.C * (np.array([weights[c] for c in y]) if weights else np.ones(m))
         bounded = support & np.isclose(alpha, row_c, rtol=1e-8, atol=0.0)
         margin = signed_margins(decision, y)
         extras: dict[str, Any] = {"kernel_r2": self._kernel_r2(K, X, gamma), "decision": decision}
@@ -424,6 +281,50 @@ class SVMLearner:
             extras=extras,
         )
 
+    def _fit_own(
+        self, kernel: smo.Kernel, y: np.ndarray, row_c: np.ndarray, problem: SVMRefitProblem
+    ) -> DualModel:
+        """Two classes: our own SMO solver (holdfast.learners.smo), to ``WARM_TOL``; the solution is kept
+        in ``problem`` as the warm start of every refit."""
+        m = len(y)
+        ypm = np.where(y == 1, 1.0, -1.0)
+        alpha, grad, rho, _ = smo.fit_dual(kernel, np.arange(m), ypm, row_c.astype(np.float64), WARM_TOL)
+        problem.solver = kernel
+        problem.alpha, problem.grad, problem.c_row = alpha, grad, row_c.astype(np.float64)
+        problem.qd = kernel.diag(np.arange(m))
+        dec = ypm * (grad + 1.0) - rho
+        problem.near = ypm * dec < 1.0 + WORKING_SET_SLACK
+        return DualModel.from_dual(alpha, ypm, rho, dec, self._args())
+
+    def _fit_own_pairs(
+        self, kernel: smo.Kernel, y: np.ndarray, row_c: np.ndarray, n_classes: int, problem: SVMRefitProblem
+    ) -> PairModel:
+        """More than two classes: one-vs-one machines with our own solver (holdfast.learners.pairs); the
+        solutions are kept in ``problem`` so that a refit re-solves only the machines a row is in."""
+        states = fit_pairs(kernel, y, row_c.astype(np.float64), n_classes, WARM_TOL)
+        problem.solver = kernel
+        problem.pairs = states
+        problem.ovo_full = np.column_stack(
+            [pair_decision(kernel, *s.coef(), s.rho) for s in states]  # all training rows, pair order
+        )
+        return PairModel.from_states(states, n_classes, len(y), problem.ovo_full, self._args())
+
+    def _args(self) -> tuple[str, float, int, float]:
+        return (self.kernel, self.gamma_, self.degree, self.coef0)
+
+    def _has_tie(self, own: DualModel | PairModel, kernel: smo.Kernel, problem: SVMRefitProblem) -> bool:
+        """True when a training decision value of our own fit is within ``tie_tolerance`` of 0."""
+        k_max = float(np.max(kernel.diag(np.arange(len(problem.y)))))
+        if isinstance(own, DualModel):
+            assert problem.alpha is not None and problem.grad is not None
+            ypm = np.where(problem.y == 1, 1.0, -1.0)
+            dec = ypm * (problem.grad + 1.0) + own.intercept_[0]
+            return bool(np.min(np.abs(dec)) < tie_tolerance(self.tol, float(problem.alpha.sum()), k_max))
+        assert problem.pairs is not None and problem.ovo_full is not None
+        sums = np.array([s.alpha.sum() for s in problem.pairs])
+        limits = np.array([tie_tolerance(self.tol, float(a), k_max) for a in sums])
+        return bool(np.any(np.min(np.abs(problem.ovo_full), axis=0) < limits))
+
     def _kernel_r2(self, K: np.ndarray | None, X: np.ndarray, gamma: float) -> float:
         """R^2 = max K - min K over the training kernel values (for the xi-alpha estimate)."""
         if K is None:
@@ -431,7 +332,9 @@ class SVMLearner:
             K = kernel_matrix(X[idx], X[idx], self.kernel, gamma, self.degree, self.coef0)
         return float(K.max() - K.min())
 
-    def _train_decision(self, clf: SVC, K: np.ndarray | None, X: np.ndarray, n_classes: int) -> np.ndarray:
+    def _train_decision(
+        self, clf: SVC | DualModel | PairModel, K: np.ndarray | None, X: np.ndarray, n_classes: int
+    ) -> np.ndarray:
         if n_classes == 2 and K is not None:
             return clf.dual_coef_[0] @ K[clf.support_] + clf.intercept_[0]  # K symmetric: row gather
         return clf.decision_function(K if K is not None else X)
@@ -440,7 +343,7 @@ class SVMLearner:
     def _codes(decision: np.ndarray, classes: np.ndarray) -> np.ndarray:
         if decision.ndim == 1:
             return np.where(decision > 0, classes[1], classes[0]).astype(np.int64)
-        return classes[np.argmax(decision, axis=1)].astype(np.int64)
+        return classes[vote_codes(decision)].astype(np.int64)
 
     # -- after fitting -------------------------------------------------------------------------------
     def refit_problem(self) -> SVMRefitProblem:
@@ -450,7 +353,9 @@ class SVMLearner:
     def decision(self, X: np.ndarray) -> np.ndarray:
         """Decision values for new rows under the fitted model."""
         X = np.ascontiguousarray(X, dtype=np.float64)
-        if self.problem_.K is not None:
+        if isinstance(self.svc_, DualModel | PairModel) and self.problem_.K is None:
+            return self.svc_.decision_rows(X, self.X_train_)
+        if self.problem_.K is not None and not self.svc_on_X_:
             cross = kernel_matrix(X, self.X_train_, self.kernel, self.gamma_, self.degree, self.coef0)
             return self.svc_.decision_function(cross)
         return self.svc_.decision_function(X)

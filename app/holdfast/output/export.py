@@ -3,22 +3,30 @@
 The session (decisions journal) records the data path, the data fingerprint and the spec. The data is read
 again and scanned with that spec (normally straight from the scan cache) to get the scores, flags and
 bounds the exports need. Decisions are matched to rows by id; a decision whose id is no longer in the data
-is reported on stderr and kept in the decisions export, never dropped.
+is reported on stderr and kept in the decisions export, never dropped. A session without an id column
+(rows identified by position) refuses a changed data file: positions would name other rows.
+
+The stored spec's ``[run]`` table is not trusted: a session file may come from someone else, and its
+``run.backend``/``run.scheduler`` could send the data to any dask scheduler. Export always refits in this
+process (joblib threads, the stored ``run.jobs``); a cluster is used only when this run's own command
+line or spec asks for one.
 """
 
 from __future__ import annotations
 
 import sys
 from collections.abc import Callable
+from dataclasses import replace
 from pathlib import Path
 
 from holdfast.data.load import fingerprint_file, read_table
-from holdfast.data.spec import spec_from_text
+from holdfast.data.spec import RunSpec, spec_from_text
 from holdfast.engine.loo import Progress
 from holdfast.errors import DataError, SessionError, UserError
 from holdfast.output.tables import export_cleaned, export_decisions
 from holdfast.review.decisions import FORMATS
 from holdfast.review.journal import Journal
+from holdfast.review.sessions import refuse_moved_positions
 from holdfast.textsafe import safe_text
 
 #: How many unmatched ids a warning lists before it says "and N more".
@@ -54,7 +62,7 @@ def _check_outputs(outputs: dict[str, Path | None], force: bool) -> None:
 
 def _report_images(path: Path) -> list[Path]:
     folder = path.with_name(f"{path.stem}_files")
-    return [folder / "margin.png", folder / "score.png"]
+    return [folder / "margin.png", folder / "score.png", folder / "whatif.png"]
 
 
 def _data_path(stored: str, session: Path) -> Path:
@@ -111,7 +119,7 @@ def export_session(
     }
     if not any(outputs.values()):
         raise UserError(f"{session}: nothing to export; give --to FILE, --cleaned FILE and/or --report FILE")
-    with Journal.open(session) as journal:  # a missing or foreign session file is the first thing to report
+    with Journal.open(session, read_only=True) as journal:  # a missing or foreign session: reported first
         _check_outputs(outputs, force)
         meta = journal.meta
         spec_text = meta.get("spec") or ""
@@ -119,6 +127,8 @@ def export_session(
         if not spec_text or not stored:
             raise SessionError(f"{session}: session file lacks its data path or spec")
         spec = spec_from_text(spec_text, source=f"{session} (stored spec)")
+        # never a cluster named by a received file: refits run here (see the module docstring)
+        spec = replace(spec, run=RunSpec(jobs=spec.run.jobs, cache=spec.run.cache))
         data_path = _data_path(stored, session)
         if not data_path.is_file():
             raise DataError(
@@ -129,7 +139,11 @@ def export_session(
                 f"{outputs['cleaned']}: is the session's data file; write the cleaned set elsewhere"
             )
         frame = read_table(data_path)
-        if fingerprint_file(data_path) != meta.get("fingerprint"):
+        fingerprint = fingerprint_file(data_path)
+        refuse_moved_positions(
+            meta, fingerprint, data_path, session, bool(journal.current(include_notes_only=True))
+        )
+        if fingerprint != meta.get("fingerprint"):
             warn(
                 f"{data_path}: the data changed since session {session} was created; decisions are matched "
                 f"to rows by id"

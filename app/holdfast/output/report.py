@@ -11,7 +11,6 @@ any ASCII punctuation may be escaped) and control characters are written as ``\\
 
 from __future__ import annotations
 
-import io
 import re
 from collections.abc import Mapping
 from datetime import UTC, datetime
@@ -25,6 +24,7 @@ from holdfast import __version__
 from holdfast.atomic import atomic_write_bytes
 from holdfast.errors import UserError
 from holdfast.insight.explain import percent
+from holdfast.output.plots import margin_figure, png, score_figure, whatif_figure
 from holdfast.output.terminal import same_support_and_loo_bound
 from holdfast.review.decisions import decisions_dict
 from holdfast.review.events import Decision
@@ -109,96 +109,18 @@ def _decisions(decisions: Journal | Mapping[str, Decision] | pd.DataFrame | None
 
 
 # ------------------------------------------------------------------------------------------------ images
-def plot_text(value: Any, limit: int = 40) -> str:
-    """Data text for a matplotlib label, shown literally: ``$`` escaped (no mathtext), a leading ``_``
-    guarded (matplotlib hides legend labels that start with it), control characters made visible, long
-    text shortened."""
-    text = _CONTROL.sub(lambda m: f"\\x{ord(m.group(0)):02x}", str(value)).replace("$", r"\$")
-    if text.startswith("_"):
-        text = " " + text
-    return text if len(text) <= limit else text[: limit - 1] + "\u2026"
-
-
-def _png(fig: Any) -> bytes:
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-
-    FigureCanvasAgg(fig)
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=100)
-    return buf.getvalue()
-
-
-def _histogram_png(
-    values: np.ndarray,
-    groups: np.ndarray,
-    *,
-    title: str,
-    xlabel: str,
-    marks: tuple[float, ...],
-    bins: int = 40,
-    log: bool = False,
-) -> bytes:
-    """A histogram of ``values`` by group (shared bins), drawn with matplotlib's Agg canvas (no pyplot)."""
-    from matplotlib.figure import Figure
-
-    from holdfast.insight.histograms import histogram
-
-    h = histogram(values, bins=bins, by=groups)
-    fig = Figure(figsize=(7.5, 3.6))
-    ax = fig.add_subplot(1, 1, 1)
-    widths = np.diff(h.edges)
-    bottom = np.zeros(h.bins)
-    for name in h.groups:
-        counts = h.counts[name]
-        ax.bar(
-            h.edges[:-1],
-            counts,
-            width=widths,
-            bottom=bottom,
-            align="edge",
-            label=plot_text(name),
-            edgecolor="white",
-            linewidth=0.4,
-        )
-        bottom = bottom + counts
-    for x in marks:
-        if h.edges[0] <= x <= h.edges[-1]:
-            ax.axvline(x, color="0.3", linestyle="--", linewidth=0.8)
-    ax.set_title(title, fontsize=10)
-    ax.set_xlabel(xlabel)
-    ax.set_ylabel("rows (log scale)" if log else "rows")
-    if log and h.total:
-        ax.set_yscale("log", nonpositive="clip")
-        ax.set_ylim(bottom=0.8)
-    if len(h.groups) > 1:
-        ax.legend(title="label", fontsize=8, title_fontsize=8, frameon=False)
-    fig.tight_layout()
-    return _png(fig)
-
-
-def _images(scan: Scan) -> dict[str, bytes]:
+def _images(
+    scan: Scan, decisions: Mapping[str, Decision], whatif: WhatIf | None, top: int
+) -> dict[str, bytes]:
     rows = scan.findings.rows
-    tr = rows[~rows["held_out"].to_numpy(dtype=bool)]
-    labels = tr["label"].astype(object).map(str).to_numpy()
-    two = len(scan.findings.summary.get("classes", [])) == 2
-    margin = _histogram_png(
-        tr["margin"].to_numpy(dtype=float),
-        labels,
-        title="Margin of the training rows, stacked by label (dashed: " + ("0 and 1)" if two else "0)"),
-        xlabel="margin y f(x)  (negative: the model disagrees with the label)"
-        if two
-        else "margin: label's score minus the best other  (negative: model disagrees)",
-        marks=(0.0, 1.0) if two else (0.0,),
-    )
-    score = _histogram_png(
-        tr["score"].to_numpy(dtype=float),
-        labels,
-        title="Suspicion score of the training rows, stacked by label",
-        xlabel="suspicion score (higher: look first)",
-        marks=(),
-        log=True,
-    )
-    return {"margin.png": margin, "score.png": score}
+    classes = [str(c) for c in scan.findings.summary.get("classes", scan.findings.classes)]
+    out = {
+        "margin.png": png(margin_figure(rows, classes, decisions)),
+        "score.png": png(score_figure(rows, classes, decisions, top)),
+    }
+    if whatif is not None:
+        out["whatif.png"] = png(whatif_figure(whatif, rows))
+    return out
 
 
 # ------------------------------------------------------------------------------------------------ sections
@@ -240,7 +162,7 @@ def _bounds(scan: Scan) -> list[str]:
                     md_escape(f"{item.get('name', key)} = {lb.get('name', 'LOO bound')}"),
                     _num(item.get("value")),
                     md_escape("misses_outside=0: no LOO miss outside the support set, so (d + 0)/m = d/m"),
-                    md_escape(f"{item.get('source', '')}; {lb.get('source', '')}"),
+                    md_escape(lb.get("source", "")),
                 ]
             )
             continue
@@ -383,7 +305,7 @@ def _decision_section(scan: Scan, decisions: dict[str, Decision]) -> list[str]:
     return lines
 
 
-def _whatif_section(w: WhatIf) -> list[str]:
+def _whatif_section(w: WhatIf, image: str) -> list[str]:
     lines = [
         "## What-if: the decisions applied and the model refitted",
         "",
@@ -394,6 +316,8 @@ def _whatif_section(w: WhatIf) -> list[str]:
         f"Rows whose status changed (label, support, LOO miss, prediction, or excluded): {len(w.changed)}.",
         "",
         f"**Caution.** {md_escape(w.caution)}",
+        "",
+        f"![Before and after the decisions]({image})",
         "",
     ]
     lines.extend(f"- {md_escape(n)}" for n in w.notes)
@@ -445,7 +369,8 @@ def write_report(
     if target.is_dir():
         raise UserError(f"{target}: is a folder, expected a report file (.md)")
     folder = target.with_name(f"{target.stem}_files")
-    images = {name: folder / name for name in ("margin.png", "score.png")}
+    names = ("margin.png", "score.png", *(("whatif.png",) if whatif is not None else ()))
+    images = {name: folder / name for name in names}
     if not force:
         for p in (target, *images.values()):
             if p.exists():
@@ -463,20 +388,28 @@ def write_report(
         *_explanation(scan),
         "## Margins and scores",
         "",
+        "The counts are on a log scale above 1 row, so the few rows in the negative margin tail show; each "
+        "label is one outline (not stacked). Marks at the top are the decided rows; dashed lines are the "
+        "cut-offs named in the legend.",
+        "",
         f"![Margin histogram by label]({_relative(images['margin.png'], target.parent)})",
         "",
         f"![Suspicion score histogram by label]({_relative(images['score.png'], target.parent)})",
         "",
         *_top_rows(scan, table, top),
         *_decision_section(scan, table),
-        *(_whatif_section(whatif) if whatif is not None else []),
+        *(
+            _whatif_section(whatif, _relative(images["whatif.png"], target.parent))
+            if whatif is not None
+            else []
+        ),
         "## Cautions",
         "",
         *(f"- {c}" for c in CAUTIONS),
         "",
     ]
     try:
-        for filename, data in _images(scan).items():
+        for filename, data in _images(scan, table, whatif, top).items():
             atomic_write_bytes(images[filename], data)
         atomic_write_bytes(target, "\n".join(lines).encode("utf-8"))
     except OSError as exc:

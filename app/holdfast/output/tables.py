@@ -2,6 +2,10 @@
 
 Both are written atomically; an existing file is refused unless ``force``. The decisions file's columns are
 :data:`holdfast.review.decisions.DECISION_COLUMNS`.
+
+CSV files are opened in spreadsheets: every text cell and column name goes through
+:func:`holdfast.textsafe.csv_cell` (a cell that would start a formula gets a leading apostrophe, control
+characters are escaped). Parquet keeps the raw values.
 """
 
 from __future__ import annotations
@@ -17,6 +21,7 @@ from holdfast.data.prepare import row_ids
 from holdfast.errors import UserError
 from holdfast.review.decisions import DECISION_COLUMNS, apply_decisions, decisions_frame, table_suffix
 from holdfast.review.journal import Journal
+from holdfast.textsafe import csv_cell
 
 #: Parquet schema of a decisions file: fixed, so that a column with no values is still text, not null
 DECISIONS_SCHEMA = pa.schema(
@@ -81,6 +86,22 @@ def _refuse_overwrite(path: Path, force: bool) -> None:
         raise UserError(f"{path}: already exists; use --force to overwrite")
 
 
+def csv_safe_frame(frame: pd.DataFrame) -> pd.DataFrame:
+    """``frame`` with every text cell and column name through :func:`csv_cell` (numbers untouched)."""
+    out = frame.copy()
+    for column in out.columns:
+        s = out[column]
+        if pd.api.types.is_numeric_dtype(s.dtype) or pd.api.types.is_bool_dtype(s.dtype):
+            continue
+        if pd.api.types.is_datetime64_any_dtype(s.dtype) or pd.api.types.is_timedelta64_dtype(s.dtype):
+            continue
+        out[column] = pd.Series(
+            [csv_cell(v) if isinstance(v, str) else v for v in s.tolist()], index=s.index, dtype=object
+        )
+    out.columns = [csv_cell(c) if isinstance(c, str) else c for c in out.columns]
+    return out
+
+
 def _write_frame(frame: pd.DataFrame, path: Path, schema: pa.Schema | None = None) -> None:
     """Write ``frame`` atomically; Parquet with ``schema`` if given, CSV with "\\n" line ends everywhere."""
     if table_suffix(path) == ".parquet":
@@ -89,9 +110,10 @@ def _write_frame(frame: pd.DataFrame, path: Path, schema: pa.Schema | None = Non
             frame.to_parquet(p, index=False, schema=schema)
 
     else:
+        safe = csv_safe_frame(frame)
 
         def writer(p: Path) -> None:
-            frame.to_csv(p, index=False, lineterminator="\n")
+            safe.to_csv(p, index=False, lineterminator="\n")
 
     try:
         atomic_write(path, writer, force=True)

@@ -19,6 +19,7 @@ from holdfast.data.prepare import row_ids
 from holdfast.errors import DataError, UserError
 from holdfast.review.events import DECISIONS, Decision
 from holdfast.review.journal import Journal
+from holdfast.textsafe import csv_cell_back
 
 DECISION_COLUMNS: tuple[str, ...] = (
     "id",
@@ -88,6 +89,8 @@ def read_decisions(path: str | Path) -> pd.DataFrame:
             frame = pd.read_parquet(source)
         else:
             frame = pd.read_csv(source, dtype=str, keep_default_na=False)
+            frame = frame.map(csv_cell_back)  # written by csv_cell: formula guards removed
+            frame.columns = [csv_cell_back(c) for c in frame.columns]
     except Exception as exc:  # pyarrow, pandas and OS errors alike: the file cannot be read
         raise DataError(f"{source}: cannot read decisions file ({type(exc).__name__}: {exc})") from exc
     for column in REQUIRED_COLUMNS:

@@ -22,6 +22,19 @@ Durability
 WAL mode with ``synchronous=FULL``: every public write runs in ``BEGIN IMMEDIATE ... COMMIT`` and returns
 only after the commit, which SQLite syncs to disk before returning (SQLite documentation, "Write-Ahead
 Logging" and "PRAGMA synchronous"). Several processes may open the same journal; writers take turns.
+
+Several openers
+---------------
+Undo and redo never reverse an action another open copy of the journal made while this one was open
+(another process, or another :class:`Journal` object): that is a :class:`SessionError` naming the file.
+Actions made before this copy was opened (earlier sessions) stay undoable. The inspector goes further and
+holds the session lock (:mod:`holdfast.review.lock`), so a second inspector opens the session read-only.
+
+Read-only
+---------
+``Journal.open(path, read_only=True)``, or a file or folder this process cannot write, opens the journal
+read-only (``read_only_reason`` says why): every reading method works, every write is a
+:class:`SessionError`. A healthy journal in a read-only folder is opened, never reported as damaged.
 """
 
 from __future__ import annotations
@@ -29,6 +42,7 @@ from __future__ import annotations
 import os
 import sqlite3
 import threading
+import urllib.parse
 from collections.abc import Iterable, Iterator, Sequence
 from contextlib import contextmanager
 from pathlib import Path
@@ -47,6 +61,7 @@ from holdfast.review.events import (
     check_change,
     utc_now,
 )
+from holdfast.review.sessionfiles import can_write, fsync_dir, remove_stale_temp_files, temp_name
 
 
 class Journal:
@@ -56,11 +71,21 @@ class Journal:
     context manager; it may be used from several threads (calls are serialised by a lock).
     """
 
-    def __init__(self, path: Path, conn: sqlite3.Connection) -> None:
+    def __init__(self, path: Path, conn: sqlite3.Connection, read_only_reason: str | None = None) -> None:
         self.path = path
         self._conn = conn
         self._lock = threading.RLock()
         self._stack_cache: tuple[int, list[int], list[int]] | None = None
+        #: why the journal is read-only (None: it is writable)
+        self.read_only_reason = read_only_reason
+        #: actions written through this object, and the last event seq when it was opened
+        self._mine: set[int] = set()
+        self._opened_at = int(conn.execute("SELECT COALESCE(MAX(seq), 0) FROM events").fetchone()[0])
+
+    @property
+    def read_only(self) -> bool:
+        """True when this journal was opened read-only (see ``read_only_reason``)."""
+        return self.read_only_reason is not None
 
     # ------------------------------------------------------------------ opening
     @classmethod
@@ -93,9 +118,10 @@ class Journal:
         }
         if target.exists():
             raise SessionError(f"{target}: session file already exists")
-        tmp = target.with_name(f".{target.name}.{os.getpid()}.tmp")
+        tmp = temp_name(target)
         try:
             target.parent.mkdir(parents=True, exist_ok=True)
+            remove_stale_temp_files(target)
             conn = sqlite3.connect(tmp, isolation_level=None)
             try:
                 conn.execute("PRAGMA journal_mode=WAL")
@@ -118,7 +144,7 @@ class Journal:
                 if target.exists():
                     raise SessionError(f"{target}: session file already exists") from None
                 os.replace(tmp, target)
-            _fsync_dir(target.parent)
+            fsync_dir(target.parent)
         except (OSError, sqlite3.Error) as exc:
             raise SessionError(f"{target}: cannot create session file ({exc})") from exc
         finally:
@@ -127,14 +153,43 @@ class Journal:
         return cls.open(target)
 
     @classmethod
-    def open(cls, path: str | Path) -> Journal:
-        """Open an existing journal; :class:`SessionError` naming the file if it is missing or not one."""
+    def open(cls, path: str | Path, *, read_only: bool = False) -> Journal:
+        """Open an existing journal; :class:`SessionError` naming the file if it is missing or not one.
+
+        ``read_only=True``, or a file or folder this process cannot write, opens it read-only.
+        """
         target = Path(path)
         if not target.is_file():
             raise SessionError(f"{target}: no such session file")
+        reason: str | None = "opened read-only" if read_only else None
+        if reason is None and not can_write(target):
+            reason = "the session file or its folder is read-only"
+        if reason is None:
+            remove_stale_temp_files(target)
+        try:
+            conn = cls._connect(target, reason is not None)
+        except sqlite3.OperationalError as exc:
+            if reason is not None or "readonly" not in str(exc).replace("-", "").replace(" ", ""):
+                raise SessionError(f"{target}: cannot open session file ({exc})") from exc
+            reason = "the session file or its folder is read-only"
+            conn = cls._connect(target, True)
+        return cls(target, conn, reason)
+
+    @staticmethod
+    def _connect(target: Path, read_only: bool) -> sqlite3.Connection:
+        """Connect and check that ``target`` is a healthy holdfast journal (SessionError otherwise)."""
         conn: sqlite3.Connection | None = None
         try:
-            conn = sqlite3.connect(target, isolation_level=None, check_same_thread=False, timeout=10.0)
+            if read_only:
+                # mode=ro needs SQLite's -shm file beside a WAL journal, or the right to create it; in a
+                # folder nobody can write, nobody writes the journal either: read it as immutable
+                folder_ok = os.access(target.parent, os.W_OK)
+                wal = Path(f"{target}-wal").exists()
+                flag = "mode=ro" if folder_ok or wal else "immutable=1"
+                uri = f"file:{urllib.parse.quote(str(target.absolute()))}?{flag}"
+                conn = sqlite3.connect(uri, uri=True, isolation_level=None, check_same_thread=False)
+            else:
+                conn = sqlite3.connect(target, isolation_level=None, check_same_thread=False, timeout=10.0)
             app_id = conn.execute("PRAGMA application_id").fetchone()[0]
             if app_id != APPLICATION_ID:
                 raise SessionError(f"{target}: not a holdfast session file")
@@ -144,8 +199,9 @@ class Journal:
                     f"{target}: session file format {version} is newer than this holdfast "
                     f"({__version__}) understands ({SCHEMA_VERSION})"
                 )
-            conn.execute("PRAGMA journal_mode=WAL")
-            conn.execute("PRAGMA synchronous=FULL")
+            if not read_only:
+                conn.execute("PRAGMA journal_mode=WAL")
+                conn.execute("PRAGMA synchronous=FULL")
             fmt = conn.execute("SELECT value FROM meta WHERE key = 'format'").fetchone()
             if fmt is None or fmt[0] != FORMAT:
                 raise SessionError(f"{target}: not a holdfast session file")
@@ -153,6 +209,10 @@ class Journal:
             check = conn.execute("PRAGMA quick_check").fetchone()[0]
             if check != "ok":
                 raise SessionError(f"{target}: session file is damaged ({check})")
+        except sqlite3.OperationalError:
+            if conn is not None:
+                conn.close()
+            raise
         except sqlite3.DatabaseError as exc:
             if conn is not None:
                 conn.close()
@@ -161,7 +221,7 @@ class Journal:
             if conn is not None:
                 conn.close()
             raise
-        return cls(target, conn)
+        return conn
 
     @classmethod
     def open_or_create(
@@ -335,8 +395,13 @@ class Journal:
     # ------------------------------------------------------------------ internals
     @contextmanager
     def _write(self) -> Iterator[sqlite3.Connection]:
+        if self.read_only_reason is not None:
+            raise SessionError(
+                f"{self.path}: session is read-only ({self.read_only_reason}); nothing was recorded"
+            )
         with self._lock:
             conn = self._conn
+            self._pending: int | None = None
             conn.execute("BEGIN IMMEDIATE")
             try:
                 yield conn
@@ -344,10 +409,13 @@ class Journal:
                 conn.execute("ROLLBACK")
                 raise
             conn.execute("COMMIT")
+            if self._pending is not None:  # only a committed action counts as this copy's own
+                self._mine.add(self._pending)
 
-    @staticmethod
-    def _next_action(conn: sqlite3.Connection) -> int:
-        return int(conn.execute("SELECT COALESCE(MAX(action), 0) + 1 FROM events").fetchone()[0])
+    def _next_action(self, conn: sqlite3.Connection) -> int:
+        action = int(conn.execute("SELECT COALESCE(MAX(action), 0) + 1 FROM events").fetchone()[0])
+        self._pending = action
+        return action
 
     @staticmethod
     def _state_of(conn: sqlite3.Connection, row_id: str) -> tuple[str, str | None, str | None] | None:
@@ -411,6 +479,12 @@ class Journal:
             if not stack:
                 return []
             target = stack[-1]
+            first = int(conn.execute("SELECT MIN(seq) FROM events WHERE action = ?", (target,)).fetchone()[0])
+            if target not in self._mine and first > self._opened_at:
+                raise SessionError(
+                    f"{self.path}: the last action was made by another open copy of this session; "
+                    f"nothing was {kind}ne here"
+                )
             # For every row of the target action: its last state before the action's first event.
             before = conn.execute(
                 """
@@ -434,17 +508,3 @@ class Journal:
                 self._insert(conn, row_id, decision or "clear", new_label, note, time, action, kind)
                 for row_id, decision, new_label, note in before
             ]
-
-
-def _fsync_dir(folder: Path) -> None:
-    """Make a rename in ``folder`` durable (POSIX); a no-op where directories cannot be opened."""
-    try:
-        fd = os.open(folder, os.O_RDONLY)
-    except OSError:
-        return
-    try:
-        os.fsync(fd)
-    except OSError:
-        pass
-    finally:
-        os.close(fd)

@@ -9,8 +9,10 @@ changes the held-out data (its error and the test-set bound) but the row is neve
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import json
+import os
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -36,8 +38,10 @@ WHATIF_CAUTION = (
     "the label the decision gave it, by models trained on the other edited labels. The held-out error "
     "(rows never trained on) is the honest check."
 )
-#: the what-if cache: after-findings of each set of decisions, in the scan's cache folder
+#: the what-if cache: after-findings of each set of decisions, in the scan's cache folder; the
+#: ``WHATIF_KEEP`` most recently written or read are kept
 WHATIF_PREFIX = "whatif-"
+WHATIF_KEEP = 8
 
 #: summary counts compared before/after: (summary key, label)
 COUNTS: tuple[tuple[str, str], ...] = (
@@ -165,9 +169,18 @@ def compare(before: dict[str, Any], after: dict[str, Any]) -> list[tuple[str, An
             )
         )
     bb, ba = before.get("bounds", {}), after.get("bounds", {})
+    # d/m and the LOO bound are one number when no LOO miss lies outside the support set (always for an
+    # SVM): one row with both names, as in the terminal summary and the report
+    same = all(
+        b.get("loo_bound", {}).get("misses_outside") == 0 and "support_fraction" in b for b in (bb, ba)
+    )
     for key in BOUND_KEYS:
+        if same and key == "loo_bound":
+            continue
         if key in bb or key in ba:
             name = (bb.get(key) or ba.get(key))["name"]
+            if same and key == "support_fraction":
+                name = f"{name} = {(bb.get('loo_bound') or ba.get('loo_bound'))['name']}"
             rows.append((name, (bb.get(key) or {}).get("value"), (ba.get(key) or {}).get("value")))
     return rows
 
@@ -245,6 +258,19 @@ def _cache_folder(scan: Scan, key: str, root: Path | None) -> Path | None:
     if not data_fp:
         return None
     return cache_dir(str(data_fp), scan.spec.fingerprint(), root) / f"{WHATIF_PREFIX}{key}"
+
+
+def prune_whatif_cache(scan_folder: Path, keep: int = WHATIF_KEEP) -> list[Path]:
+    """Remove all but the ``keep`` most recently written (or read) what-if results of one scan; return
+    the removed folders."""
+    import shutil
+
+    found = [f for f in scan_folder.glob(f"{WHATIF_PREFIX}*") if f.is_dir()]
+    found.sort(key=lambda f: f.stat().st_mtime, reverse=True)
+    removed = found[keep:]
+    for folder in removed:
+        shutil.rmtree(folder, ignore_errors=True)
+    return removed
 
 
 def _read_after(folder: Path) -> Findings | None:
@@ -336,6 +362,8 @@ def what_if(
         found = _read_after(folder) if folder is not None and (folder / "summary.json").exists() else None
         if found is not None and len(found.rows) == len(cleaned):
             after_findings, cached = found, True
+            with contextlib.suppress(OSError):
+                os.utime(folder)  # recently used: kept by prune_whatif_cache
             if progress is not None:
                 d = int(found.summary.get("d", 0))
                 progress(d, d, 0.0)
@@ -349,6 +377,7 @@ def what_if(
             after_findings.summary["data"]["path"] = source
             if folder is not None:
                 after_findings.write(folder)
+                prune_whatif_cache(folder.parent)
     after = after_findings.summary
     return WhatIf(
         before=before,

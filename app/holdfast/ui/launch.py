@@ -27,12 +27,14 @@ def launch(data_path: Path, spec: Spec, session: Path | None = None) -> int:
     opened = open_session(data_path, spec, session)
     if opened.location_note:
         print(f"holdfast: {opened.location_note}", file=sys.stderr)
+    if opened.read_only_note and opened.read_only_note != opened.location_note:
+        print(f"holdfast: {opened.read_only_note}", file=sys.stderr)
     try:
         app = HoldfastApp(Path(data_path), spec, opened, frame=frame)
         code = app.run()
     finally:
         journal = opened.journal
         decided = len(journal.current())
-        journal.close()
+        opened.close()
     print(f"holdfast: session {opened.path} ({decided:,} row(s) with a decision)", file=sys.stderr)
     return int(code or 0)

@@ -20,7 +20,8 @@ from holdfast.data.spec import Spec, spec_from_text
 from holdfast.errors import DataError, SpecError
 from holdfast.review.events import Decision, Event
 from holdfast.review.journal import Journal
-from holdfast.review.sessions import default_session_path
+from holdfast.review.lock import LockBusy, SessionLock, acquire
+from holdfast.review.sessions import default_session_path, refuse_moved_positions
 
 #: Marker appended to the decision text of a row that carries a note.
 NOTE_MARK = " ✎"
@@ -54,15 +55,34 @@ class OpenedSession:
     data_fingerprint: str = ""
     data_changed: bool = False
     spec_changed: bool = False
+    #: set when decisions cannot be recorded (open elsewhere, read-only folder): says why, one line
+    read_only_note: str | None = None
+    lock: SessionLock | None = None
+
+    @property
+    def read_only(self) -> bool:
+        """True when the session is open read-only (``read_only_note`` says why)."""
+        return self.journal.read_only
+
+    def close(self) -> None:
+        """Close the journal and give the session lock back."""
+        self.journal.close()
+        if self.lock is not None:
+            self.lock.release()
 
 
 def open_session(data_path: str | Path, spec: Spec, session: str | Path | None = None) -> OpenedSession:
     """Open (or create) the session journal for ``data_path`` scanned with ``spec``.
 
     ``session=None`` uses :func:`holdfast.review.sessions.default_session_path` (beside the data, or the
-    user's
-    data folder when that one is read-only). An existing journal is checked against the data fingerprint
-    and the spec fingerprint; a difference is a warning, never an error, and no decision is touched.
+    user's data folder when that one is read-only). An existing journal is checked against the data
+    fingerprint and the spec fingerprint; a difference is a warning, never an error, and no decision is
+    touched -- except for a session without an id column whose data changed: its positions would name
+    other rows, so that is a SessionError.
+
+    The session lock (:mod:`holdfast.review.lock`) is held while the session is open; when another opener
+    holds it, or the session's folder is read-only, the journal opens read-only and ``read_only_note``
+    says why. Close with :meth:`OpenedSession.close`.
 
     Raises
     ------
@@ -81,23 +101,57 @@ def open_session(data_path: str | Path, spec: Spec, session: str | Path | None =
         path = Path(session).expanduser()
     fingerprint = fingerprint_file(data)
     existed = path.exists()
-    journal = Journal.open_or_create(
-        path,
-        fingerprint=fingerprint,
-        data_path=data.absolute(),
-        spec_text=spec.to_toml(),
-        label_column=spec.data.label,
-        id_column=spec.data.id,
+    busy: LockBusy | None = None
+    lock: SessionLock | None = None
+    if existed or path.parent.is_dir():
+        try:
+            lock = acquire(path)
+        except LockBusy as exc:
+            busy = exc
+    journal = (
+        Journal.open(path, read_only=busy is not None)
+        if existed
+        else Journal.open_or_create(
+            path,
+            fingerprint=fingerprint,
+            data_path=data.absolute(),
+            spec_text=spec.to_toml(),
+            label_column=spec.data.label,
+            id_column=spec.data.id,
+        )
     )
+    if lock is None and busy is None and not journal.read_only:
+        try:  # the folder was made just now
+            lock = acquire(path)
+        except LockBusy as exc:
+            journal.close()
+            journal, busy = Journal.open(path, read_only=True), exc
     opened = OpenedSession(
         journal=journal,
         path=path,
         created=not existed,
         location_note=location_note,
         data_fingerprint=fingerprint,
+        lock=lock,
     )
+    if busy is not None:
+        opened.read_only_note = (
+            f"session {path} is open in another inspector ({busy.holder.describe()}): read-only here, "
+            f"decisions cannot be recorded; close the other one to decide"
+        )
+    elif journal.read_only:
+        opened.read_only_note = (
+            f"session {path} is read-only ({journal.read_only_reason}): decisions cannot be recorded"
+        )
     if existed:
-        check_session(opened, spec)
+        try:
+            refuse_moved_positions(
+                journal.meta, fingerprint, data, path, bool(journal.current(include_notes_only=True))
+            )
+            check_session(opened, spec)
+        except BaseException:
+            opened.close()
+            raise
     return opened
 
 

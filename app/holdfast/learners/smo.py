@@ -1,0 +1,483 @@
+"""A two-class soft-margin SVM dual solver of our own (SMO), compiled with numba.
+
+The problem is libsvm's C-SVC dual (Chang & Lin 2011, "LIBSVM: a library for support vector machines",
+ACM TIST 2(3), section 4.1): minimise ``1/2 a'Qa - e'a`` subject to ``y'a = 0`` and ``0 <= a_t <= C_t``,
+with ``Q_st = y_s y_t K(x_s, x_t)`` and a per-row box ``C_t`` (C times the row's class weight).
+
+* Sequential minimal optimisation (Platt 1998, "Sequential minimal optimization: a fast algorithm for
+  training support vector machines") with the second-order working-set selection of Fan, Chen & Lin 2005
+  ("Working set selection using second order information for training support vector machines",
+  JMLR 6), the pair update and clipping of libsvm (Chang & Lin 2011, section 4.1.2; ``tau = 1e-12``).
+* libsvm's stopping rule: ``m(a) - M(a) <= eps`` with ``m(a) = max_{t in I_up} -y_t G_t`` and
+  ``M(a) = min_{t in I_low} -y_t G_t`` (Chang & Lin 2011, eq. 4.13; Keerthi et al. 2001).
+* libsvm's intercept: ``rho`` is the mean of ``y_t G_t`` over free rows, else the middle of the interval
+  the bounded rows allow (Chang & Lin 2011, section 4.1.5); the decision value is
+  ``f(x) = sum_t a_t y_t K(x_t, x) - rho``.
+
+The solver may start from any feasible ``a`` with its gradient ``G = Qa - e`` (alpha seeding, DeCoste &
+Wagstaff 2000, "Alpha seeding for support vector machines", KDD): :mod:`holdfast.learners.warm` turns a
+full solution into a feasible start for the problem without one row. A row is taken out of a problem by
+giving it the box ``C_t = 0`` (it is then in neither I_up nor I_low and never selected) and skipping it in
+``rho``; its gradient is still kept up to date, so its decision value under the refit comes for free.
+
+Kernel rows come from a precomputed matrix ``K`` (rows gathered through ``idx``) or, without one, are
+computed from ``X`` on demand (linear, RBF, polynomial) and kept in a small row cache. Everything runs
+with the GIL released (``nogil``) so refits run on joblib threads.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit
+
+#: libsvm's TAU: the curvature used when K_ii + K_jj - 2 K_ij <= 0 (Chang & Lin 2011, section 4.1.2).
+TAU = 1e-12
+#: kernel values per block when sums of kernel rows are computed from X in chunks (32 MB of float64)
+COMBO_CHUNK_VALUES = 4_000_000
+#: kernel codes for the numba functions
+KERNEL_CODES = {"linear": 0, "rbf": 1, "poly": 2}
+
+
+@njit(nogil=True, cache=True)
+def _compute_row(X, r, kind, gamma, degree, coef0, idx, out):
+    """out[q] = K(x_r, x_idx[q]) computed from X (linear, RBF or polynomial)."""
+    p = X.shape[1]
+    for q in range(idx.shape[0]):
+        s = idx[q]
+        acc = 0.0
+        if kind == 1:
+            for f in range(p):
+                d = X[r, f] - X[s, f]
+                acc += d * d
+            out[q] = math.exp(-gamma * acc)
+        else:
+            for f in range(p):
+                acc += X[r, f] * X[s, f]
+            if kind == 0:
+                out[q] = acc
+            else:
+                out[q] = (gamma * acc + coef0) ** degree
+
+
+@njit(nogil=True, cache=True)
+def _fetch(t, keep, K, X, kind, gamma, degree, coef0, idx, ident, cache, slot_of, owner, state):
+    """Kernel values K(x_idx[t], x_idx[q]) for every position q: a row of K, or a cached gathered row.
+
+    ``keep`` is a position whose cached row must not be evicted (the other row of the current pair).
+    """
+    if ident:
+        return K[idx[t]]
+    s = slot_of[t]
+    if s >= 0:
+        return cache[s]
+    ncache = cache.shape[0]
+    s = state[0]
+    if owner[s] == keep and keep >= 0:
+        s = (s + 1) % ncache
+    state[0] = (s + 1) % ncache
+    if owner[s] >= 0:
+        slot_of[owner[s]] = -1
+    owner[s] = t
+    slot_of[t] = s
+    row = cache[s]
+    if K.shape[0] > 0:
+        kr = K[idx[t]]
+        for q in range(idx.shape[0]):
+            row[q] = kr[idx[q]]
+    else:
+        _compute_row(X, idx[t], kind, gamma, degree, coef0, idx, row)
+    return row
+
+
+@njit(nogil=True, cache=True)
+def _unshrink(
+    K, X, kind, gamma, degree, coef0, idx, ident, y, G, dacc, touched, act, cache, slot_of, owner, state
+):
+    """Bring the gradient of the rows outside ``act`` up to date: G_t += y_t sum_s dacc_s K_st."""
+    n = idx.shape[0]
+    inside = np.zeros(n, dtype=np.bool_)
+    for t in act:
+        inside[t] = True
+    for s in range(n):
+        if touched[s] and dacc[s] != 0.0:
+            Ks = _fetch(s, -1, K, X, kind, gamma, degree, coef0, idx, ident, cache, slot_of, owner, state)
+            d = dacc[s]
+            for t in range(n):
+                if not inside[t]:
+                    G[t] += y[t] * Ks[t] * d
+        dacc[s] = 0.0
+        touched[s] = False
+
+
+@njit(nogil=True, cache=True)
+def _smo(K, X, kind, gamma, degree, coef0, idx, ident, y, C, QD, alpha, G, eps, max_iter, ncache, act):
+    """SMO with second-order working-set selection until m(a) - M(a) < eps; alpha and G in place.
+
+    ``act`` lists the positions SMO works on first (shrinking, Joachims 1999, "Making large-scale SVM
+    learning practical"; libsvm's variant in Chang & Lin 2011, section 5.1): the gradient of the others is
+    brought up to date from the accumulated alpha changes once the active rows are optimal, and SMO goes
+    on over all rows until every row meets the stopping rule, so the result does not depend on ``act``.
+    Returns the number of iterations (pair updates) done.
+    """
+    n = idx.shape[0]
+    shrunk = act.shape[0] < n
+    dacc = np.zeros(n if shrunk else 1)
+    touched = np.zeros(n if shrunk else 1, dtype=np.bool_)
+    if ident:
+        ncache = 1
+    cache = np.empty((max(ncache, 2), n if not ident else 1))
+    slot_of = np.full(n, -1, dtype=np.int64)
+    owner = np.full(cache.shape[0], -1, dtype=np.int64)
+    state = np.zeros(1, dtype=np.int64)
+    it = 0
+    while it < max_iter:
+        # i: the most violating row in I_up (libsvm's select_working_set)
+        gmax = -np.inf
+        i = -1
+        for t in act:
+            if y[t] > 0:
+                if alpha[t] < C[t] and -G[t] >= gmax:
+                    gmax = -G[t]
+                    i = t
+            elif alpha[t] > 0 and G[t] >= gmax:
+                gmax = G[t]
+                i = t
+        if i == -1:
+            if shrunk:
+                _unshrink(
+                    K,
+                    X,
+                    kind,
+                    gamma,
+                    degree,
+                    coef0,
+                    idx,
+                    ident,
+                    y,
+                    G,
+                    dacc,
+                    touched,
+                    act,
+                    cache,
+                    slot_of,
+                    owner,
+                    state,
+                )
+                act = np.arange(n)
+                shrunk = False
+                continue
+            break
+        Ki = _fetch(i, -1, K, X, kind, gamma, degree, coef0, idx, ident, cache, slot_of, owner, state)
+        # j: in I_low, the largest second-order decrease of the objective (Fan, Chen & Lin 2005, WSS 2)
+        gmax2 = -np.inf
+        j = -1
+        obj_min = np.inf
+        for t in act:
+            if y[t] > 0:
+                if alpha[t] > 0:
+                    gd = gmax + G[t]
+                    if G[t] >= gmax2:
+                        gmax2 = G[t]
+                else:
+                    continue
+            else:
+                if alpha[t] < C[t]:
+                    gd = gmax - G[t]
+                    if -G[t] >= gmax2:
+                        gmax2 = -G[t]
+                else:
+                    continue
+            if gd > 0:
+                qc = QD[i] + QD[t] - 2.0 * Ki[t]
+                od = -(gd * gd) / (qc if qc > 0 else TAU)
+                if od <= obj_min:
+                    j = t
+                    obj_min = od
+        if gmax + gmax2 < eps or j == -1:
+            if shrunk:
+                _unshrink(
+                    K,
+                    X,
+                    kind,
+                    gamma,
+                    degree,
+                    coef0,
+                    idx,
+                    ident,
+                    y,
+                    G,
+                    dacc,
+                    touched,
+                    act,
+                    cache,
+                    slot_of,
+                    owner,
+                    state,
+                )
+                act = np.arange(n)
+                shrunk = False
+                continue
+            break
+        it += 1
+        Kj = _fetch(j, i, K, X, kind, gamma, degree, coef0, idx, ident, cache, slot_of, owner, state)
+        if not ident:  # the fetch of j may have reused a slot; i's row is kept (see _fetch)
+            Ki = cache[slot_of[i]]
+        ci = C[i]
+        cj = C[j]
+        oai = alpha[i]
+        oaj = alpha[j]
+        qc = QD[i] + QD[j] - 2.0 * Ki[j]
+        if qc <= 0:
+            qc = TAU
+        if y[i] != y[j]:
+            delta = (-G[i] - G[j]) / qc
+            diff = alpha[i] - alpha[j]
+            alpha[i] += delta
+            alpha[j] += delta
+            if diff > 0:
+                if alpha[j] < 0:
+                    alpha[j] = 0.0
+                    alpha[i] = diff
+            elif alpha[i] < 0:
+                alpha[i] = 0.0
+                alpha[j] = -diff
+            if diff > ci - cj:
+                if alpha[i] > ci:
+                    alpha[i] = ci
+                    alpha[j] = ci - diff
+            elif alpha[j] > cj:
+                alpha[j] = cj
+                alpha[i] = cj + diff
+        else:
+            delta = (G[i] - G[j]) / qc
+            total = alpha[i] + alpha[j]
+            alpha[i] -= delta
+            alpha[j] += delta
+            if total > ci:
+                if alpha[i] > ci:
+                    alpha[i] = ci
+                    alpha[j] = total - ci
+            elif alpha[j] < 0:
+                alpha[j] = 0.0
+                alpha[i] = total
+            if total > cj:
+                if alpha[j] > cj:
+                    alpha[j] = cj
+                    alpha[i] = total - cj
+            elif alpha[i] < 0:
+                alpha[i] = 0.0
+                alpha[j] = total
+        dai = (alpha[i] - oai) * y[i]
+        daj = (alpha[j] - oaj) * y[j]
+        for t in act:
+            G[t] += y[t] * (Ki[t] * dai + Kj[t] * daj)
+        if shrunk:
+            dacc[i] += dai
+            dacc[j] += daj
+            touched[i] = True
+            touched[j] = True
+    if shrunk:  # stopped by max_iter: the caller still gets a gradient that is right everywhere
+        _unshrink(
+            K,
+            X,
+            kind,
+            gamma,
+            degree,
+            coef0,
+            idx,
+            ident,
+            y,
+            G,
+            dacc,
+            touched,
+            act,
+            cache,
+            slot_of,
+            owner,
+            state,
+        )
+    return it
+
+
+@njit(nogil=True, cache=True)
+def _rho(y, C, alpha, G, skip):
+    """libsvm's rho: mean y_t G_t over free rows, else the middle of [lb, ub] from the bounded rows."""
+    ub = np.inf
+    lb = -np.inf
+    nfree = 0
+    sfree = 0.0
+    for t in range(y.shape[0]):
+        if t == skip:
+            continue
+        yg = y[t] * G[t]
+        if alpha[t] >= C[t]:
+            if y[t] < 0:
+                ub = min(ub, yg)
+            else:
+                lb = max(lb, yg)
+        elif alpha[t] <= 0:
+            if y[t] > 0:
+                ub = min(ub, yg)
+            else:
+                lb = max(lb, yg)
+        else:
+            nfree += 1
+            sfree += yg
+    if nfree > 0:
+        return sfree / nfree
+    return (ub + lb) / 2.0
+
+
+def max_iterations(n: int) -> int:
+    """libsvm's iteration cap: max(10,000,000, 100 n) (Chang & Lin 2011, the ``max_iter`` of Solver)."""
+    return max(10_000_000, 100 * n)
+
+
+class Kernel:
+    """Where kernel rows come from: a precomputed matrix, or X with the kernel's parameters."""
+
+    def __init__(
+        self,
+        K: np.ndarray | None = None,
+        X: np.ndarray | None = None,
+        kind: str = "linear",
+        gamma: float = 1.0,
+        degree: int = 3,
+        coef0: float = 0.0,
+        cache_rows: int = 256,
+    ) -> None:
+        self.K = K if K is not None else np.empty((0, 0))
+        self.X = np.ascontiguousarray(X, dtype=np.float64) if X is not None else np.empty((0, 1))
+        self.kind = KERNEL_CODES[kind]
+        self.gamma = float(gamma)
+        self.degree = int(degree)
+        self.coef0 = float(coef0)
+        self.cache_rows = int(cache_rows)
+
+    @property
+    def precomputed(self) -> bool:
+        return self.K.shape[0] > 0
+
+    @property
+    def n_rows(self) -> int:
+        """Number of training rows."""
+        return self.K.shape[0] if self.precomputed else self.X.shape[0]
+
+    def diag(self, idx: np.ndarray) -> np.ndarray:
+        """K(x_t, x_t) for the rows ``idx``."""
+        if self.precomputed:
+            return np.ascontiguousarray(self.K[idx, idx], dtype=np.float64)
+        Xi = self.X[idx]
+        sq = np.einsum("ij,ij->i", Xi, Xi)
+        if self.kind == 1:
+            return np.ones(len(idx))
+        if self.kind == 0:
+            return sq
+        return (self.gamma * sq + self.coef0) ** self.degree
+
+    def combo(self, rows: np.ndarray, coef: np.ndarray, idx: np.ndarray | None) -> np.ndarray:
+        """``sum_k coef_k K(x_rows_k, x_idx)`` without a len(rows) x len(idx) block when it would be large:
+        for the linear kernel through the primal vector ``w = sum_k coef_k x_k`` (O(len(idx) p)),
+        otherwise in chunks of rows."""
+        n = self.n_rows if idx is None else len(idx)
+        if len(rows) == 0:
+            return np.zeros(n)
+        if self.precomputed:
+            return coef @ self.rows(rows, idx)
+        Xc = self.X if idx is None else self.X[idx]
+        if self.kind == 0:
+            return Xc @ (coef @ self.X[rows])
+        out = np.zeros(n)
+        step = max(1, COMBO_CHUNK_VALUES // max(n, 1))
+        for k in range(0, len(rows), step):
+            out += coef[k : k + step] @ self.rows(rows[k : k + step], idx)
+        return out
+
+    def rows(self, rows: np.ndarray, idx: np.ndarray | None) -> np.ndarray:
+        """K(x_rows, x_idx) as a dense (len(rows), len(idx)) block; ``idx=None`` means every training row."""
+        if idx is None:
+            if self.precomputed:
+                return self.K[rows]
+            idx = np.arange(self.X.shape[0])
+        if self.precomputed:
+            return self.K[np.ix_(rows, idx)]
+        out = np.empty((len(rows), len(idx)))
+        for k, r in enumerate(rows):
+            _compute_row(self.X, int(r), self.kind, self.gamma, self.degree, self.coef0, idx, out[k])
+        return out
+
+
+def solve(
+    kernel: Kernel,
+    idx: np.ndarray,
+    y: np.ndarray,
+    C: np.ndarray,
+    alpha: np.ndarray,
+    G: np.ndarray,
+    eps: float,
+    QD: np.ndarray | None = None,
+    max_iter: int | None = None,
+    active: np.ndarray | None = None,
+) -> int:
+    """Run SMO on the rows ``idx`` (positions 0..n-1) from a feasible ``alpha`` with ``G = Qa - e``.
+
+    ``y`` is +1/-1 (float), ``C`` the per-row box (0 takes a row out); ``alpha`` and ``G`` are updated in
+    place. ``active``: positions to work on first (see ``_smo``; all rows meet the stopping rule at the
+    end either way). Returns the number of pair updates (``max_iter`` of them at most: libsvm's cap).
+    """
+    idx = np.ascontiguousarray(idx, dtype=np.int64)
+    ident = kernel.precomputed and len(idx) == kernel.K.shape[0] and bool(np.all(idx == np.arange(len(idx))))
+    if QD is None:
+        QD = kernel.diag(idx)
+    ncache = kernel.cache_rows if not kernel.precomputed else min(kernel.cache_rows, 64)
+    return int(
+        _smo(
+            kernel.K,
+            kernel.X,
+            kernel.kind,
+            kernel.gamma,
+            kernel.degree,
+            kernel.coef0,
+            idx,
+            ident,
+            y,
+            C,
+            QD,
+            alpha,
+            G,
+            float(eps),
+            max_iterations(len(idx)) if max_iter is None else int(max_iter),
+            max(2, ncache),
+            np.arange(len(idx)) if active is None else np.ascontiguousarray(active, dtype=np.int64),
+        )
+    )
+
+
+def gradient(kernel: Kernel, idx: np.ndarray, y: np.ndarray, alpha: np.ndarray) -> np.ndarray:
+    """``G = Qa - e`` computed afresh from the rows with a non-zero alpha (no accumulated rounding)."""
+    sv = np.flatnonzero(alpha > 0)
+    G = -np.ones(len(idx))
+    if len(sv):
+        G += y * kernel.combo(idx[sv], alpha[sv] * y[sv], idx)
+    return G
+
+
+def rho(y: np.ndarray, C: np.ndarray, alpha: np.ndarray, G: np.ndarray, skip: int = -1) -> float:
+    """libsvm's intercept rule (see the module docstring); ``skip`` is a position left out."""
+    return float(_rho(y, C, alpha, G, int(skip)))
+
+
+def fit_dual(
+    kernel: Kernel, idx: np.ndarray, y: np.ndarray, C: np.ndarray, eps: float
+) -> tuple[np.ndarray, np.ndarray, float, int]:
+    """A cold solve from ``alpha = 0``: (alpha, G, rho, iterations); G recomputed afresh at the end."""
+    n = len(idx)
+    alpha = np.zeros(n)
+    G = -np.ones(n)
+    QD = kernel.diag(idx)
+    its = solve(kernel, idx, y, C, alpha, G, eps, QD)
+    G = gradient(kernel, idx, y, alpha)
+    its += solve(kernel, idx, y, C, alpha, G, eps, QD)  # usually 0: the fresh gradient is still optimal
+    return alpha, G, rho(y, C, alpha, G), its

@@ -1,0 +1,201 @@
+"""Benchmark: exact LOO with our warm-started solver against scikit-learn's LeaveOneOut, and how it scales.
+
+Two parts, each case in a fresh Python process (so the peak RSS, ``getrusage``, is that case's own):
+
+1. ``--naive`` (the default first case): m = 2,000 rows of ``make_classification(n_features=10,
+   n_informative=6, flip_y=0.05, random_state=0)``, standardised, RBF, C=1, gamma "scale", tol 1e-6.
+   Ours = ``SVMLearner.fit`` + ``exact_loo`` (what ``holdfast scan`` does for the LOO, all cores);
+   naive = scikit-learn's ``cross_val_predict(SVC(same frozen settings), cv=LeaveOneOut(), n_jobs=-1)``,
+   timed in full. The script asserts that both give the same LOO prediction for every row, and that the
+   flip counts of ``--flip-sample`` support rows equal those of independent full SVC refits.
+2. The scaling table (``--sizes``): for each m, the same data kind plus an imbalanced set
+   (``weights=[0.97]``) and an overlapping set (``class_sep=0.5``) at ``--side-size`` rows. Printed: the
+   support rows d, the fit, the LOO, ms per refit, how many refits fell back to a cold libsvm solve,
+   the time of one full SVC fit on the same data (ratio = fit+LOO over it) and naive LOO *estimated*
+   from ``--naive-sample`` timed SVC refits (times m; marked ``est``), and the peak memory.
+
+Run: ``PYTHONPATH=app python tests/bench/bench_solver_scale.py [--sizes 2000,5000,10000] [--quick]``.
+Exits 1 if the LOO predictions differ from LeaveOneOut (exactness is the point), else 0 whatever the times.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import resource
+import subprocess
+import sys
+import time
+from typing import Any
+
+import numpy as np
+
+
+def _data(m: int, kind: str) -> tuple[np.ndarray, np.ndarray]:
+    from sklearn.datasets import make_classification
+    from sklearn.preprocessing import StandardScaler
+
+    extra: dict[str, Any] = {}
+    if kind == "imbalanced":
+        extra["weights"] = [0.97]
+    elif kind == "overlapping":
+        extra["class_sep"] = 0.5
+    X, y = make_classification(
+        n_samples=m, n_features=10, n_informative=6, flip_y=0.05, random_state=0, **extra
+    )
+    return StandardScaler().fit_transform(X), y.astype(np.int64)
+
+
+def _svc(learner: Any) -> Any:
+    from sklearn.svm import SVC
+
+    return SVC(
+        kernel=learner.kernel,
+        C=learner.C,
+        gamma=learner.gamma_,
+        tol=learner.tol,
+        class_weight=learner.class_weight_,
+        cache_size=500,
+    )
+
+
+def run_case(m: int, kind: str, naive_full: bool, naive_sample: int, flip_sample: int) -> dict[str, Any]:
+    """One case in this process; returns the figures."""
+    import holdfast.learners.svm_refit as refit_mod
+    from holdfast.engine.loo import exact_loo
+    from holdfast.learners.svm import SVMLearner
+
+    X, y = _data(m, kind)
+    cold = {"n": 0}
+    original = refit_mod.SVMRefitProblem._fit_without
+
+    def counted(self: Any, row: int) -> Any:
+        cold["n"] += 1
+        return original(self, row)
+
+    refit_mod.SVMRefitProblem._fit_without = counted  # type: ignore[method-assign]
+    t0 = time.perf_counter()
+    learner = SVMLearner(kernel="rbf", C=1.0, gamma="scale")
+    model = learner.fit(X, y)
+    t_fit = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    result = exact_loo(model, learner.refit_problem(), jobs=-1)
+    t_loo = time.perf_counter() - t0
+    d = int(model.support.sum())
+    out: dict[str, Any] = {
+        "m": m,
+        "kind": kind,
+        "d": d,
+        "fit": t_fit,
+        "loo": t_loo,
+        "ms_refit": 1000 * t_loo / max(d, 1),
+        "cold": cold["n"],
+        "precomputed": learner.refit_problem().K is not None,
+    }
+    t0 = time.perf_counter()
+    full = _svc(learner).fit(X, y)
+    out["svc_fit"] = time.perf_counter() - t0
+    out["svc_sv"] = len(full.support_)
+    if naive_full:
+        from sklearn.model_selection import LeaveOneOut, cross_val_predict
+
+        t0 = time.perf_counter()
+        naive = cross_val_predict(_svc(learner), X, y, cv=LeaveOneOut(), n_jobs=-1)
+        out["naive"] = time.perf_counter() - t0
+        out["naive_estimated"] = False
+        out["mismatches"] = int((naive != result.loo_code).sum())
+    else:
+        rng = np.random.default_rng(1)
+        rows = rng.choice(m, size=min(naive_sample, m), replace=False)
+        t0 = time.perf_counter()
+        mismatches = 0
+        for r in rows:
+            keep = np.delete(np.arange(m), r)
+            pred = _svc(learner).fit(X[keep], y[keep]).predict(X[r : r + 1])[0]
+            mismatches += int(pred != result.loo_code[r])
+        # one core per naive refit; cross_val_predict would run two at a time on two cores
+        per = (time.perf_counter() - t0) / len(rows)
+        out["naive"] = per * m / min(2, os.cpu_count() or 1)
+        out["naive_estimated"] = True
+        out["mismatches"] = mismatches
+        out["naive_checked"] = len(rows)
+    if flip_sample:
+        sv = np.flatnonzero(model.support)
+        rows = np.random.default_rng(2).choice(sv, size=min(flip_sample, len(sv)), replace=False)
+        bad = 0
+        for r in rows:
+            keep = np.delete(np.arange(m), r)
+            pred = _svc(learner).fit(X[keep], y[keep]).predict(X)
+            changed = pred != model.prediction
+            changed[r] = False
+            bad += int(changed.sum() != result.flip_count[r])
+        out["flip_checked"] = len(rows)
+        out["flip_mismatches"] = bad
+    out["peak_mb"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    return out
+
+
+def _in_subprocess(args: list[str]) -> dict[str, Any]:
+    env = dict(os.environ)
+    proc = subprocess.run(
+        [sys.executable, __file__, "--case", *args], capture_output=True, text=True, env=env, check=False
+    )
+    if proc.returncode != 0:
+        sys.stderr.write(proc.stderr)
+        raise SystemExit(f"case {args} failed")
+    return json.loads(proc.stdout.strip().splitlines()[-1])
+
+
+def _row(r: dict[str, Any]) -> str:
+    total = r["fit"] + r["loo"]
+    est = " est" if r["naive_estimated"] else ""
+    checked = r.get("naive_checked", r["m"])
+    flips = f"{r['flip_mismatches']}/{r['flip_checked']}" if "flip_checked" in r else "-"
+    return (
+        f"| {r['kind']} | {r['m']:,} | {r['d']:,} | {r['fit']:.2f} | {r['loo']:.2f} | {r['ms_refit']:.2f} | "
+        f"{r['cold']} | {r['svc_fit']:.2f} | {total / r['svc_fit']:.1f} | {r['naive']:.1f}{est} | "
+        f"{r['naive'] / total:.1f} | {r['mismatches']}/{checked} | {flips} | {r['peak_mb']:.0f} |"
+    )
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--case", nargs=5, help=argparse.SUPPRESS)
+    parser.add_argument("--sizes", default="5000,10000")
+    parser.add_argument("--side-size", type=int, default=5000, help="rows of the imbalanced/overlapping sets")
+    parser.add_argument("--naive-rows", type=int, default=2000, help="rows of the fully timed naive case")
+    parser.add_argument("--naive-sample", type=int, default=30)
+    parser.add_argument("--flip-sample", type=int, default=40)
+    parser.add_argument("--quick", action="store_true", help="small sizes, for a smoke run")
+    parser.add_argument("--naive-only", action="store_true", help="only the fully timed naive case")
+    args = parser.parse_args()
+    if args.case:
+        m, kind, full, sample, flips = args.case
+        print(json.dumps(run_case(int(m), kind, full == "1", int(sample), int(flips))))
+        return
+    if args.quick:
+        args.sizes, args.side_size, args.naive_rows = "600,1200", 800, 400
+    cases = [(args.naive_rows, "base", "1", "0", str(args.flip_sample))]
+    if not args.naive_only:
+        cases += [(int(s), "base", "0", str(args.naive_sample), "0") for s in args.sizes.split(",") if s]
+        side = ("imbalanced", "overlapping")
+        cases += [(args.side_size, k, "0", str(args.naive_sample), "0") for k in side]
+    print(
+        "| data | m | d | fit s | LOO s | ms/refit | cold | SVC fit s | x fit | naive s | x naive | "
+        "LOO mismatches | flip mismatches | peak MB |"
+    )
+    print("|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|")
+    failed = False
+    for m, kind, full, sample, flips in cases:
+        r = _in_subprocess([str(m), kind, full, sample, flips])
+        print(_row(r), flush=True)
+        failed |= r["mismatches"] > 0 or r.get("flip_mismatches", 0) > 0
+    print(f"load average {os.getloadavg()[0]:.1f}; 'est' = naive LOO estimated from a timed sample of refits")
+    if failed:
+        print("LOO predictions or flip counts differ from scikit-learn's full refits")
+        raise SystemExit(1)
+
+
+if __name__ == "__main__":
+    main()

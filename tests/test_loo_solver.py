@@ -1,0 +1,157 @@
+"""Exact LOO with our own solver (warm-started refits) checked against scikit-learn's full refits.
+
+Reference: scikit-learn's ``LeaveOneOut`` with ``cross_val_predict`` (Pedregosa et al. 2011,
+"Scikit-learn: Machine Learning in Python", JMLR 12): one cold libsvm fit per row with the learner's
+frozen gamma, class weights and tolerance; flip counts from independent full SVC refits. Data: the sets
+bundled with scikit-learn (iris, Fisher 1936; wine, Forina et al., UCI; digits, Alpaydin & Kaynak 1998,
+UCI; breast cancer, Wolberg, Street & Mangasarian 1995, UCI) and random small sets drawn by hypothesis.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+from sklearn.datasets import load_breast_cancer, load_digits, load_iris, load_wine
+from sklearn.model_selection import LeaveOneOut, cross_val_predict
+from sklearn.preprocessing import StandardScaler
+from sklearn.svm import SVC
+
+from holdfast.engine.loo import exact_loo
+from holdfast.learners.svm import SVMLearner
+
+
+def _svc(learner: SVMLearner) -> SVC:
+    return SVC(
+        kernel=learner.kernel,
+        C=learner.C,
+        gamma=learner.gamma_,
+        degree=learner.degree,
+        coef0=learner.coef0,
+        tol=learner.tol,
+        class_weight=learner.class_weight_,
+    )
+
+
+def _flips(X, y, learner, full_pred, rows) -> np.ndarray:
+    out = []
+    for r in rows:
+        keep = np.delete(np.arange(len(y)), r)
+        changed = _svc(learner).fit(X[keep], y[keep]).predict(X) != full_pred
+        changed[r] = False
+        out.append(int(changed.sum()))
+    return np.array(out)
+
+
+def _load(name: str) -> tuple[np.ndarray, np.ndarray]:
+    loader = {"iris": load_iris, "wine": load_wine, "digits": load_digits, "cancer": load_breast_cancer}
+    X, y = loader[name](return_X_y=True)
+    if name in ("digits", "cancer"):  # a subsample keeps the reference's 1 fit per row affordable
+        idx = np.random.default_rng(3).choice(len(y), size=300, replace=False)
+        X, y = X[idx], y[idx]
+    return StandardScaler().fit_transform(X), y.astype(np.int64)
+
+
+@pytest.mark.parametrize("name", ["iris", "wine", "digits", "cancer"])
+@pytest.mark.parametrize(("kernel", "C"), [("rbf", 1.0), ("linear", 0.1), ("poly", 1.0)])
+@pytest.mark.parametrize("class_weight", ["none", "balanced"])
+def test_own_solver_loo_matches_leave_one_out(name, kernel, C, class_weight):
+    X, y = _load(name)
+    learner = SVMLearner(kernel=kernel, C=C, degree=2, coef0=1.0, class_weight=class_weight)
+    model = learner.fit(X, y)
+    problem = learner.refit_problem()
+    # the paths under test: warm refits of one machine, or of the one-vs-one machines a row is in
+    assert problem.alpha is not None if y.max() == 1 else problem.pairs is not None
+    full = _svc(learner).fit(X, y)
+    assert np.array_equal(full.predict(X), model.prediction)
+    result = exact_loo(model, problem, jobs=2)
+    reference = cross_val_predict(_svc(learner), X, y, cv=LeaveOneOut())
+    assert int((result.loo_code != reference).sum()) == 0
+    # Vapnik 1995 (The Nature of Statistical Learning Theory): LOO errors <= number of support vectors
+    assert int((result.loo_code != y).sum()) <= int(model.support.sum())
+    rows = np.flatnonzero(model.support)[::6]
+    assert np.array_equal(result.flip_count[rows], _flips(X, y, learner, model.prediction, rows))
+
+
+@st.composite
+def small_problems(draw):
+    """1-3 features, duplicated rows (same and opposite labels), tied coordinates, C from 0.01 to 100."""
+    n = draw(st.integers(min_value=8, max_value=36))
+    p = draw(st.integers(min_value=1, max_value=3))
+    seed = draw(st.integers(min_value=0, max_value=2**31 - 1))
+    rng = np.random.default_rng(seed)
+    X = rng.normal(size=(n, p))
+    if draw(st.booleans()):  # ties: coordinates on a coarse grid
+        X = np.round(X * 2) / 2
+    noise = draw(st.floats(min_value=0.0, max_value=2.0))
+    y = (X[:, 0] + noise * rng.normal(size=n) > 0).astype(np.int64)
+    dups = draw(st.integers(min_value=0, max_value=4))
+    if dups:
+        pick = rng.choice(n, size=dups, replace=True)
+        X = np.vstack([X, X[pick]])
+        flip = draw(st.booleans())
+        y = np.concatenate([y, 1 - y[pick] if flip else y[pick]])
+    for c in (0, 1):  # every LOO fold of the reference needs both classes
+        short = 2 - int((y == c).sum())
+        if short > 0:
+            y[np.flatnonzero(y != c)[:short]] = c
+    kernel = draw(st.sampled_from(["linear", "rbf", "poly"]))
+    C = draw(st.sampled_from([0.01, 0.1, 1.0, 10.0, 100.0]))
+    weight = draw(st.sampled_from(["none", "balanced"]))
+    return X, y, kernel, C, weight
+
+
+@settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(small_problems())
+def test_warm_refits_match_leave_one_out_on_random_data(problem):
+    X, y, kernel, C, weight = problem
+    learner = SVMLearner(kernel=kernel, C=C, degree=2, coef0=1.0, class_weight=weight)
+    model = learner.fit(X, y)
+    # (a full fit with a training decision value at a tie hands the whole model to libsvm; either way
+    # the LOO must equal the reference)
+    result = exact_loo(model, learner.refit_problem())
+    reference = cross_val_predict(_svc(learner), X, y, cv=LeaveOneOut())
+    assert int((result.loo_code != reference).sum()) == 0
+    sv = np.flatnonzero(model.support)
+    assert np.array_equal(result.flip_count[sv], _flips(X, y, learner, model.prediction, sv))
+
+
+def test_near_flat_intercepts_in_one_dimension():
+    """Near-flat intercepts (the kind of case CI found earlier, see test_loo_reference): 1-D linear data
+    with two clusters far apart and C large, where without a bounded row the optimal intercept can be a
+    whole interval; many seeds, every refit compared with a full SVC refit."""
+    for seed in range(12):
+        rng = np.random.default_rng(seed)
+        X = np.concatenate([rng.normal(-1.0, 0.4, 14), rng.normal(1.0, 0.4, 14)]).reshape(-1, 1)
+        y = np.array([0] * 14 + [1] * 14)
+        y[rng.choice(28, size=3, replace=False)] ^= 1
+        for C in (10.0, 100.0):
+            learner = SVMLearner(kernel="linear", C=C)
+            model = learner.fit(X, y)
+            result = exact_loo(model, learner.refit_problem())
+            reference = cross_val_predict(_svc(learner), X, y, cv=LeaveOneOut())
+            assert int((result.loo_code != reference).sum()) == 0, (seed, C)
+            sv = np.flatnonzero(model.support)
+            assert np.array_equal(result.flip_count[sv], _flips(X, y, learner, model.prediction, sv))
+
+
+@pytest.mark.parametrize("name", ["cancer", "wine"])
+def test_linear_kernel_above_the_precompute_limit(name):
+    """Linear kernel above the precompute limit: our solver computes kernel rows from X on demand (no m x m
+    matrix, no kernel matrix at all); LOO predictions and flip counts equal scikit-learn's full refits,
+    held-out decision values equal SVC's on the full training set."""
+    X, y = _load(name)
+    learner = SVMLearner(kernel="linear", C=0.1, precompute_max_rows=10)
+    model = learner.fit(X, y)
+    problem = learner.refit_problem()
+    assert problem.K is None and problem.solver is not None and not problem.solver.precomputed
+    full = _svc(learner).fit(X, y)
+    assert np.array_equal(full.predict(X), model.prediction)
+    new = X[:40] + 0.1
+    assert np.allclose(learner.decision(new), full.decision_function(new), atol=1e-4)
+    result = exact_loo(model, problem)
+    reference = cross_val_predict(_svc(learner), X, y, cv=LeaveOneOut())
+    assert int((result.loo_code != reference).sum()) == 0
+    rows = np.flatnonzero(model.support)[::5]
+    assert np.array_equal(result.flip_count[rows], _flips(X, y, learner, model.prediction, rows))
