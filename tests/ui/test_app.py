@@ -412,7 +412,7 @@ async def test_reopening_the_session_restores_the_decisions(ds: DataSet) -> None
         await pilot.press("home", "x", "down", "d", "n", *"ask the grader", "enter")
         decided = {screen.book.ids[int(p)]: screen.table.value("decision", int(p)) for p in order[:2]}
         await pilot.press("ctrl+q")
-    app.context.session.journal.close()
+    app.context.session.close()  # the journal and the session lock
 
     again = make_app(ds)
     async with again.run_test(size=SIZE) as pilot:
