@@ -1,6 +1,7 @@
 """Test helper for test_journal_durability: write decisions until killed.
 
-Usage: ``python journal_writer.py JOURNAL``. Prints ``ready`` once the journal is open, then for step 0, 1,
+Usage: ``python journal_writer.py JOURNAL [--lock]``. With ``--lock`` it first takes the session lock, as
+the inspector does (holdfast.review.lock). Prints ``ready`` once the journal is open, then for step 0, 1,
 2, ... records :func:`planned` ``(step)`` (every fourth step as one bulk action of three rows) and, only after
 the write has returned, prints ``committed <row_id>`` for each row of the step, flushed.
 """
@@ -28,7 +29,12 @@ def planned(step: int) -> list[tuple[str, str, str | None, str | None]]:
     return out
 
 
-def main(path: str) -> None:
+def main(path: str, lock: bool = False) -> None:
+    if lock:
+        from holdfast.review.lock import acquire
+
+        held = acquire(path)
+        assert held is not None
     journal = Journal.open(path)
     print("ready", flush=True)
     step = 0
@@ -44,4 +50,4 @@ def main(path: str) -> None:
 
 
 if __name__ == "__main__":
-    main(sys.argv[1])
+    main(sys.argv[1], lock="--lock" in sys.argv[2:])

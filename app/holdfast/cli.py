@@ -258,6 +258,7 @@ def _in_worker(work: Callable[[], int]) -> int:
         worker.join(2.0)
         if worker.is_alive():  # inside the solver: leave now, nothing half-written stays visible
             sys.stdout.flush()
+            end_open_lines()
             print(CANCELLED, file=sys.stderr, flush=True)
             os._exit(130)
         raise

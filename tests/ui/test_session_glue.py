@@ -41,7 +41,7 @@ def test_open_session_creates_the_journal_beside_the_data(tmp_path: Path) -> Non
         assert meta["label_column"] == "grade" and meta["id_column"] == "crate"
         assert spec_from_text(meta["spec"] or "").fingerprint() == SPEC.fingerprint()
     finally:
-        opened.journal.close()
+        opened.close()  # the journal and the session lock
     again = open_session(ds.data, SPEC)
     again.journal.close()
     assert not again.created and again.warnings == []

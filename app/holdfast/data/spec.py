@@ -113,7 +113,24 @@ def _toml_value(value: Any) -> str:
         return repr(value)
     if isinstance(value, list | tuple):
         return "[" + ", ".join(_toml_value(v) for v in value) + "]"
-    return json.dumps(str(value))
+    return _toml_string(str(value))
+
+
+def _toml_string(text: str) -> str:
+    """A TOML basic string: quote, backslash and control characters escaped, everything else literal.
+
+    (``json.dumps`` would write characters outside the Basic Multilingual Plane as surrogate pairs, which
+    TOML 1.0 refuses: "Escaped character is not a Unicode scalar value".)
+    """
+    out = []
+    for ch in text:
+        if ch in ('"', "\\"):
+            out.append("\\" + ch)
+        elif ord(ch) < 0x20 or ord(ch) == 0x7F:
+            out.append(f"\\u{ord(ch):04x}")
+        else:
+            out.append(ch)
+    return '"' + "".join(out) + '"'
 
 
 def _unknown(where: str, key: str, valid: tuple[str, ...] | list[str], source: str) -> SpecError:
@@ -181,7 +198,7 @@ def parse_spec(table: dict[str, Any], source: str = "<spec>") -> Spec:
 
     learner = dict(table.get("learner", {}))
     family = learner.setdefault("family", "svm")
-    if family not in LEARNER_KEYS:
+    if not isinstance(family, str) or family not in LEARNER_KEYS:
         raise SpecError(
             f"{source}: 'learner.family' must be one of {' | '.join(LEARNER_KEYS)}, got {family!r}"
         )

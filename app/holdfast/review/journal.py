@@ -43,7 +43,7 @@ import os
 import sqlite3
 import threading
 import urllib.parse
-from collections.abc import Iterable, Iterator, Sequence
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from contextlib import contextmanager
 from pathlib import Path
 
@@ -80,6 +80,8 @@ class Journal:
         self.read_only_reason = read_only_reason
         #: actions written through this object, and the last event seq when it was opened
         self._mine: set[int] = set()
+        self._pending: int | None = None  # the action being written, counted as ours once committed
+        self._held: list[Callable[[], None]] = []
         self._opened_at = int(conn.execute("SELECT COALESCE(MAX(seq), 0) FROM events").fetchone()[0])
 
     @property
@@ -255,9 +257,16 @@ class Journal:
             raise
 
     def close(self) -> None:
-        """Close the connection (every write is already committed)."""
+        """Close the connection (every write is already committed) and release what :meth:`hold` holds."""
         with self._lock:
             self._conn.close()
+            held, self._held = self._held, []
+        for release in held:
+            release()
+
+    def hold(self, release: Callable[[], None]) -> None:
+        """Call ``release`` when the journal is closed (the session lock lives as long as the journal)."""
+        self._held.append(release)
 
     def __enter__(self) -> Journal:
         return self
@@ -401,7 +410,7 @@ class Journal:
             )
         with self._lock:
             conn = self._conn
-            self._pending: int | None = None
+            self._pending = None
             conn.execute("BEGIN IMMEDIATE")
             try:
                 yield conn

@@ -126,6 +126,8 @@ def open_session(data_path: str | Path, spec: Spec, session: str | Path | None =
         except LockBusy as exc:
             journal.close()
             journal, busy = Journal.open(path, read_only=True), exc
+    if lock is not None:
+        journal.hold(lock.release)  # closing the journal ends the session: the lock goes with it
     opened = OpenedSession(
         journal=journal,
         path=path,
@@ -135,6 +137,7 @@ def open_session(data_path: str | Path, spec: Spec, session: str | Path | None =
         lock=lock,
     )
     if busy is not None:
+        journal.read_only_reason = f"open in another inspector, {busy.holder.describe()}"
         opened.read_only_note = (
             f"session {path} is open in another inspector ({busy.holder.describe()}): read-only here, "
             f"decisions cannot be recorded; close the other one to decide"
@@ -143,6 +146,8 @@ def open_session(data_path: str | Path, spec: Spec, session: str | Path | None =
         opened.read_only_note = (
             f"session {path} is read-only ({journal.read_only_reason}): decisions cannot be recorded"
         )
+    if opened.read_only_note:  # first of the notices the inspector shows; every decision key is refused
+        opened.warnings.append(opened.read_only_note)
     if existed:
         try:
             refuse_moved_positions(
