@@ -32,8 +32,8 @@ def test_weights_clips_and_fallbacks() -> None:
     parts = {name: rest for name, *rest in score_parts(-5.0, True, 0.8, 9.0)}
     assert parts["LOO margin"] == [-1.0, -5.0, -MARGIN_CLIP, MARGIN_CLIP]
     assert parts["neighbour dissent"][0] == W_DISSENT and parts["neighbour dissent"][3] == W_DISSENT * 0.8
-    assert parts["logistic log-odds of the label"][2:] == [LINEAR_CLIP, -W_LINEAR * LINEAR_CLIP]
+    assert parts["logistic log-odds"][2:] == [LINEAR_CLIP, -W_LINEAR * LINEAR_CLIP]
     # a missing LOO margin (a row whose refit has not arrived) counts as +-1 by the LOO miss
     missing = {name: rest for name, *rest in score_parts(float("nan"), False, float("nan"), float("nan"))}
     assert np.isnan(missing["LOO margin"][1]) and missing["LOO margin"][2] == 1.0
-    assert missing["neighbour dissent"][3] == 0.0 and missing["logistic log-odds of the label"][3] == 0.0
+    assert missing["neighbour dissent"][3] == 0.0 and missing["logistic log-odds"][3] == 0.0

@@ -412,7 +412,7 @@ async def test_reopening_the_session_restores_the_decisions(ds: DataSet) -> None
         await pilot.press("home", "x", "down", "d", "n", *"ask the grader", "enter")
         decided = {screen.book.ids[int(p)]: screen.table.value("decision", int(p)) for p in order[:2]}
         await pilot.press("ctrl+q")
-    app.context.session.journal.close()
+    app.context.session.close()  # the journal and the session lock
 
     again = make_app(ds)
     async with again.run_test(size=SIZE) as pilot:
@@ -528,7 +528,7 @@ async def test_cancel_keeps_finished_refits_and_resume_finishes(
     ds: DataSet, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
 ) -> None:
     monkeypatch.setenv("HOLDFAST_CACHE_DIR", str(tmp_path / "fresh-cache"))
-    gate = threading.Event()
+    gate, holding = threading.Event(), threading.Event()
     real = holdfast.engine.scan.run_scan
     calls = []
 
@@ -536,6 +536,7 @@ async def test_cancel_keeps_finished_refits_and_resume_finishes(
         def held(done: int, total: int, eta: float | None) -> None:
             progress(done, total, eta)
             if done > 0 and not calls:  # hold the first scan after its first stored refit
+                holding.set()
                 gate.wait(30)
 
         try:
@@ -550,6 +551,7 @@ async def test_cancel_keeps_finished_refits_and_resume_finishes(
         label = screen.query_one("#progress-label")
         await until(pilot, lambda: "Refitting without each support row" in str(label.content))
         assert "escape cancels" in str(label.content)
+        await until(pilot, holding.is_set)  # a refit is stored: cancelling now keeps it
         await pilot.press("escape")
         gate.set()
         await scanned(pilot)

@@ -182,7 +182,7 @@ def rank_rows(score: np.ndarray) -> np.ndarray:
 SCORE_PARTS: tuple[tuple[str, str, float], ...] = (
     ("LOO margin", "loo_margin", -1.0),
     ("neighbour dissent", "neighbour_dissent_avg", W_DISSENT),
-    ("logistic log-odds of the label", "linear_logit", -W_LINEAR),
+    ("logistic log-odds", "linear_logit", -W_LINEAR),
 )
 
 

@@ -23,6 +23,8 @@ CAUTION = (
     "Flags are evidence, not proof of a wrong label. In regulated data (medical, credit, safety) "
     "label changes follow the domain's own review."
 )
+#: The same in one line of 80 cells (narrow terminals; the help screen has the whole text).
+CAUTION_SHORT = "Flags are evidence, not proof. Regulated data: follow the domain's own review."
 #: What can go wrong while writing the journal; shown as one line, the app goes on.
 SAVE_ERRORS = (UserError, sqlite3.Error, OSError)
 

@@ -25,6 +25,7 @@ from holdfast.ui.messages import (
     ScanCancelled,
     ScanFailed,
     ScanFinished,
+    ScanPartial,
     ScanProgress,
     Throttle,
     WhatIfFailed,
@@ -51,7 +52,8 @@ def scan_job(
     post: Post,
     should_cancel: ShouldCancel | None = None,
 ) -> None:
-    """Run the scan; post progress (about ten a second), then finished, failed or cancelled."""
+    """Run the scan; post progress (about ten a second) and provisional findings (about one a second),
+    then finished, failed or cancelled."""
     from holdfast.engine.scan import run_scan
 
     cancelled = should_cancel or _worker_cancelled()
@@ -61,8 +63,13 @@ def scan_job(
         if throttle.ready(done, total):
             post(ScanProgress(done, total, eta, generation))
 
+    def partial(findings: Any) -> None:  # on the scan's thread: only post (the engine throttles to ~1/s)
+        post(ScanPartial(findings, generation))
+
     try:
-        scan = run_scan(data_path, spec, progress=progress, should_cancel=cancelled, frame=frame)
+        scan = run_scan(
+            data_path, spec, progress=progress, should_cancel=cancelled, frame=frame, on_partial=partial
+        )
     except Cancelled:
         post(ScanCancelled(generation))
         return

@@ -29,6 +29,15 @@ class ScanProgress(Message):
 
 
 @dataclass
+class ScanPartial(Message):
+    """Provisional findings while the LOO refits run (``findings.summary["provisional"]`` is True, a
+    ``loo_pending`` column marks rows whose refit has not arrived; see the engine's ``on_partial``)."""
+
+    findings: Any
+    generation: int = 0
+
+
+@dataclass
 class ScanFinished(Message):
     """The scan finished (or came from the cache); ``scan`` is a ``holdfast.engine.scan.Scan``."""
 

@@ -95,6 +95,8 @@ class ChoiceDialog(_Dialog[str | None]):
 
     def on_mount(self) -> None:
         options = self.query_one(OptionList)
+        # title, hint, margins, paddings and borders take 13 lines: the list gets the rest
+        options.styles.max_height = max(3, min(24, self.app.size.height - 13))
         keys = [k for k, _ in self.choices]
         if self.highlighted_key in keys:
             options.highlighted = keys.index(self.highlighted_key)

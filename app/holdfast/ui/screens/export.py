@@ -44,11 +44,30 @@ def default_export_path(data_path: Path, kind: str) -> Path:
     return data_path.with_name(stem + KINDS[kind][1])
 
 
+class KindChoice(RadioSet):
+    """The file types: up and down choose a type at once (no separate toggle key)."""
+
+    def action_next_button(self) -> None:
+        super().action_next_button()
+        self._choose_selected()
+
+    def action_previous_button(self) -> None:
+        super().action_previous_button()
+        self._choose_selected()
+
+    def _choose_selected(self) -> None:
+        if self._selected is not None:
+            button = self._nodes[self._selected]
+            if isinstance(button, RadioButton) and not button.value:
+                button.value = True
+
+
 class ExportDialog(ModalScreen[ExportRequest | None]):
     """Choose what to export and the path (default beside the data). Returns None when cancelled."""
 
     BINDINGS: ClassVar[list[BindingType]] = [
         Binding("escape", "cancel", "Cancel", id="dialog.cancel"),
+        Binding("enter", "export", "Export", id="export.export", priority=True),
     ]
 
     def __init__(
@@ -63,7 +82,7 @@ class ExportDialog(ModalScreen[ExportRequest | None]):
     def compose(self) -> ComposeResult:
         with Vertical(classes="dialog", id="export-dialog"):
             yield Static("Export", classes="dialog-title")
-            with RadioSet(id="export-kind"):
+            with KindChoice(id="export-kind"):
                 for key, (label, _) in KINDS.items():
                     reason = self.unavailable.get(key)
                     text = f"{label} - {reason}" if reason else label
@@ -73,9 +92,8 @@ class ExportDialog(ModalScreen[ExportRequest | None]):
             yield Static("Path", classes="dialog-label")
             yield Input(value=self._default, id="export-path")
             yield Static(
-                "tab moves between the choices, the path and the buttons; enter in the path exports.\n"
-                "Written to a temporary file, then renamed into place; "
-                "you are asked before a file is replaced.",
+                "↑↓ file type · tab path and buttons · enter exports · escape cancels\n"
+                "Written to a temporary file, then renamed; a file is replaced only after you say yes.",
                 classes="dialog-hint",
             )
             with Horizontal(classes="dialog-buttons"):
@@ -83,7 +101,7 @@ class ExportDialog(ModalScreen[ExportRequest | None]):
                 yield Button("Cancel", id="cancel")
 
     def on_mount(self) -> None:
-        self.query_one("#export-path", Input).focus()
+        self.query_one("#export-kind", RadioSet).focus()  # the file type first; ↓ changes it
 
     @on(RadioSet.Changed)
     def _kind_changed(self, event: RadioSet.Changed) -> None:
@@ -96,7 +114,15 @@ class ExportDialog(ModalScreen[ExportRequest | None]):
         if path_input.value == self._default or not path_input.value.strip():
             self._default = str(default_export_path(self.data_path, key))
             path_input.value = self._default
-        path_input.focus()  # enter now exports
+
+    def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
+        """Enter exports from the file types and the path; on a button it presses that button."""
+        if action == "export":
+            return not isinstance(self.focused, Button)
+        return True
+
+    def action_export(self) -> None:
+        self._finish()
 
     @on(Input.Submitted)
     def _submitted(self, event: Input.Submitted) -> None:

@@ -34,9 +34,12 @@ COLUMN_TITLES: dict[str, str] = {
     "pred": "prediction",
 }
 TIPS = (
-    "Rows start with the most suspicious first (score, largest first). Click a column title to sort by it. "
-    "← and → scroll the table sideways; i hides the row detail so that every column fits; enter shows the "
-    "row detail full screen and v the whole overview (escape returns)."
+    "Rows start with the review rows (held-out rows have their own filter), most suspicious first. "
+    'f then "review queue" keeps the flagged rows without a decision; space goes to the next row without a '
+    "decision by score; a turns on auto-advance (after a decision the cursor moves on by itself). "
+    "Click a column title to sort by it. ← and → scroll the table sideways; i hides the row detail so that "
+    "every column fits; enter shows the row detail full screen and v the whole overview (escape returns). "
+    "ctrl+t switches between the dark and the light look."
 )
 DECISION_MEANING = (
     "your decision: relabel → new label, confirm (the label is right), exclude (leave the row out of the "

@@ -8,7 +8,8 @@ the handlers here own the UI state. Keys are declared in :mod:`holdfast.ui.scree
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+import contextlib
+from dataclasses import dataclass, replace
 from functools import partial
 from pathlib import Path
 from typing import Any, ClassVar
@@ -26,7 +27,7 @@ from textual.widgets import Footer, ProgressBar, Static
 
 from holdfast.data.spec import Spec
 from holdfast.ui import jobs
-from holdfast.ui.decisions import CAUTION, DecisionActions, Outcome
+from holdfast.ui.decisions import CAUTION, CAUTION_SHORT, DecisionActions, Outcome
 from holdfast.ui.evidence import row_score_parts
 from holdfast.ui.messages import (
     error_line,
@@ -49,13 +50,23 @@ TABLE_COLUMNS: tuple[ColumnSpec, ...] = (
     ColumnSpec("label", "label", None, "left"),
     ColumnSpec("loo_prediction", "LOO pred", None, "left"),
     ColumnSpec("decision", "decision", 20, "left"),
-    ColumnSpec("score", "score", 7, "right", lambda v: format_float(v, ".3f")),
+    ColumnSpec("score", "score", 8, "right", lambda v: format_float(v, ".3f")),
     ColumnSpec("flag_names", "flags", 38, "left", lambda v: format_text(v).replace(",", " ")),
     ColumnSpec("flip_count", "flips", 5, "right"),
     ColumnSpec("margin", "margin", 7, "right", lambda v: format_float(v, "+.2f")),
     ColumnSpec("alpha", "alpha", 6, "right", lambda v: format_float(v, ".3g")),
     ColumnSpec("support", "supp", 4, "center"),
     ColumnSpec("prediction", "pred", None, "left"),
+)
+#: The same columns while the scan runs: the LOO columns and the score are provisional (marked *), and a
+#: row whose refit has not arrived shows "…" as its LOO prediction.
+PROVISIONAL_COLUMNS: tuple[ColumnSpec, ...] = tuple(
+    replace(spec, title=spec.title + "*", formatter=lambda v: "…" if v is None or v is pd.NA else str(v))
+    if spec.key == "loo_prediction"
+    else replace(spec, title=spec.title + "*")
+    if spec.key in ("score", "flip_count")
+    else spec
+    for spec in TABLE_COLUMNS
 )
 DETAIL_DELAY = 0.06  # seconds: the detail panel follows the cursor at most this often
 
@@ -88,6 +99,8 @@ class InspectScreen(BackgroundWork, ViewActions, Screen[None]):
         self.filters: RowFilters | None = None
         self.rows: pd.DataFrame | None = None
         self.view_query: Query = Query(scope="all")
+        #: the rows come from provisional findings (the LOO refits are still running)
+        self.provisional = False
         #: after a decision on one row, move on to the next undecided row by score (key a turns it on/off)
         self.auto_advance = False
         self._busy: str | None = None  # "scan" or "what-if" while a worker runs
@@ -112,7 +125,9 @@ class InspectScreen(BackgroundWork, ViewActions, Screen[None]):
             yield Static(id="status")
             yield Static(id="message")
         yield Static(CAUTION, id="caution", classes="caution")
-        yield Footer()
+        yield Static(CAUTION_SHORT, id="caution-short", classes="caution")
+        yield Static(id="keys")
+        yield Footer(show_command_palette=False)
 
     @property
     def table(self) -> InspectTable:
@@ -140,44 +155,60 @@ class InspectScreen(BackgroundWork, ViewActions, Screen[None]):
         text = f"holdfast · {ctx.data_path.name} · {family} {params} · session {ctx.session.path}"
         return literal(text)
 
+    def _show_rows(self, findings: Any, *, provisional: bool) -> None:
+        """Fill the table with the rows of ``findings``; later calls (same rows, new values) re-rank them
+        and keep the filter and the cursor's row. The journal is lined up with the rows once."""
+        rows = findings.rows
+        first = self.book is None or self.rows is None or len(self.rows) != len(rows)
+        self.rows = rows
+        classes = [str(c) for c in findings.classes]
+        if first:
+            book = DecisionBook(self.context.session.journal, rows["id"].astype(str).to_numpy(dtype=object))
+            self.book = book
+            if book.unmatched:
+                self._notices.append(
+                    f"{len(book.unmatched):,} row(s) with decisions are not in this data (e.g. id "
+                    f"{safe_text(book.unmatched[0])}); they stay in the session and in exported decisions"
+                )
+                self._show_notices()
+        assert self.book is not None
+        self.filters = RowFilters(rows, self.book, classes)
+        self.actions = DecisionActions(self.book, self.filters.labels, classes)
+        frame = pd.DataFrame({spec.key: rows[spec.key] for spec in TABLE_COLUMNS if spec.key != "decision"})
+        frame["decision"] = self.book.text
+        table = self.table
+        columns = list(PROVISIONAL_COLUMNS if provisional else TABLE_COLUMNS)
+        if first:
+            table.set_data(frame, columns)
+            table.sort_by("score", descending=True)
+            self.view_query = self.filters.default
+            table.set_filter(self.filters.mask(self.view_query))
+            table.move_cursor(0)
+        else:
+            table.set_data(frame, columns, keep_view=True)
+            table.set_filter(self.filters.mask(self.view_query))
+        self.provisional = provisional
+        with contextlib.suppress(Exception):  # a provisional summary it cannot draw: it waits for the next
+            self.query_one(OverviewPanel).show(findings.summary)  # the margin histogram follows
+        self._update_detail_now()
+        self._update_status()
+        self.refresh_bindings()
+        if first:
+            table.focus()
+
     def _scan_ready(self, scan: Any) -> None:
-        """Show a finished scan: fill the table, line the journal up with the rows."""
+        """Show a finished scan: its rows (re-ranked in place when provisional rows were shown)."""
         self.scan = scan
         self._scan_state = "done"
         self._hide_progress()
-        rows = scan.findings.rows
-        self.rows = rows
-        classes = [str(c) for c in scan.findings.classes]
-        book = DecisionBook(self.context.session.journal, rows["id"].astype(str).to_numpy(dtype=object))
-        self.book = book
-        self.filters = RowFilters(rows, book, classes)
-        self.actions = DecisionActions(book, self.filters.labels, classes)
-        frame = pd.DataFrame({spec.key: rows[spec.key] for spec in TABLE_COLUMNS if spec.key != "decision"})
-        frame["decision"] = book.text
-        table = self.table
-        table.set_data(frame, list(TABLE_COLUMNS))
-        table.sort_by("score", descending=True)
-        self.view_query = self.filters.default
-        table.set_filter(self.filters.mask(self.view_query))
-        table.move_cursor(0)
-        self.query_one(OverviewPanel).show(scan.findings.summary)  # the margin histogram follows
+        self._show_rows(scan.findings, provisional=False)
         self._detail_context = None
         self._run(partial(jobs.detail_job, scan, self._generation, self.post_message), "detail", "row detail")
-        if book.unmatched:
-            self._notices.append(
-                f"{len(book.unmatched):,} row(s) with decisions are not in this data (e.g. id "
-                f"{safe_text(book.unmatched[0])}); they stay in the session and in exported decisions"
-            )
-        self._show_notices()
         self._set_message(
             "Loaded the finished scan from the cache."
             if getattr(scan, "from_cache", False)
             else "Scan finished."
         )
-        self._update_detail_now()
-        self._update_status()
-        self.refresh_bindings()
-        table.focus()
 
     # ------------------------------------------------------------------ progress, notices, status
     def _set_progress(self, label: str, done: int | None, total: int | None) -> None:
@@ -207,13 +238,24 @@ class InspectScreen(BackgroundWork, ViewActions, Screen[None]):
         """The preset key of the filter in force (``custom`` for a combined one)."""
         return self.filters.key_of(self.view_query) if self.filters is not None else "all"
 
+    def _update_keys(self) -> None:
+        """The one-line key hints of a narrow terminal (the footer's keys, in short)."""
+        if self.book is None:
+            text = "esc stop scan · ? help · ^q quit" if self._busy else "? help · ^r scan again · ^q quit"
+        else:
+            text = "rcxd decide · space next · f filter · e export · w what-if · ? help · ^p more"
+        self.query_one("#keys", Static).update(text)
+
     def _update_status(self) -> None:
+        self._update_keys()
         if self.book is None or self.filters is None:
             self.query_one("#status", Static).update("")
             return
         table, filters = self.table, self.filters
         view = table.view_positions() if table.row_count else np.zeros(0, dtype=np.intp)
         parts = [f"row {table.cursor_index + 1:,} of {len(view):,}" if len(view) else "no rows"]
+        if self.provisional:
+            parts.insert(0, "provisional ranking (* LOO refits still arriving)")
         if self.auto_advance:
             parts.append("auto-advance")
         if self.view_query != filters.default:
@@ -258,10 +300,14 @@ class InspectScreen(BackgroundWork, ViewActions, Screen[None]):
         self._detail_timer = None
         panel = self.query_one(RowDetailPanel)
         position = self.table.cursor_row
+        if self.rows is not None and position is not None:
+            margin = self.rows["margin"].iat[position]
+            self.query_one(OverviewPanel).set_current(margin, str(self.rows["label"].iat[position]))
         if not panel.display:
             return
         if self._detail_context is None or self.book is None or position is None:
-            panel.show(None)
+            waiting = self.book is not None and self.scan is None
+            panel.show(None, empty="The row detail follows when the scan has finished." if waiting else None)
             return
         try:
             detail = self._detail_context.row_detail(position)
@@ -277,6 +323,8 @@ class InspectScreen(BackgroundWork, ViewActions, Screen[None]):
 
     # ------------------------------------------------------------------ actions: availability
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
+        if action in ("export", "what_if"):
+            return self.scan is not None  # they need the finished scan
         if action in NEEDS_ROWS:
             return self.book is not None  # hidden until there are rows to act on
         if action == "cancel":

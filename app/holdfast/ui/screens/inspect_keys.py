@@ -31,7 +31,7 @@ _KEYS: tuple[tuple[str, str, str, bool, str | None], ...] = (
     ("o", "reverse", "Reverse", True, "Sort"),
     ("g", "goto", "Go to id", False, None),
     ("i", "toggle_detail", "Detail", False, None),
-    ("v", "overview", "Overview", True, None),
+    ("v", "overview", "Overview", False, None),
     ("e", "export", "Export", True, None),
     ("w", "what_if", "What-if", True, None),
     ("escape", "cancel", "Cancel", True, None),

@@ -82,6 +82,7 @@ class BackgroundWork:
         self._set_progress("Reading the data and fitting the model…", None, None)
         self._set_message("")
         self._show_notices()
+        self._update_status()
         self.refresh_bindings()
         ctx = self.context
         frame, ctx.frame = ctx.frame, None
@@ -98,6 +99,11 @@ class BackgroundWork:
             "Refitting without each support row", message.done, message.total, message.eta
         )
         self._set_progress(label, message.done, message.total)
+
+    def on_scan_partial(self, message: msg.ScanPartial) -> None:
+        """Provisional rows: shown at once, re-ranked as refits arrive, the cursor kept on its row."""
+        if self._scan_state == "running" and message.generation == self._generation:
+            self._show_rows(message.findings, provisional=True)
 
     def on_scan_finished(self, message: msg.ScanFinished) -> None:
         if message.generation != self._generation:
@@ -129,6 +135,7 @@ class BackgroundWork:
         self.table.empty_text = empty
         self.table.refresh()
         self._show_notices(notice, error=error)
+        self._update_status()
         self.refresh_bindings()
 
     def on_detail_ready(self, message: msg.DetailReady) -> None:

@@ -10,15 +10,17 @@ from __future__ import annotations
 import math
 from typing import Any, ClassVar
 
+import numpy as np
 import pandas as pd
 from rich.table import Table
 from rich.text import Text
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
-from textual.containers import Vertical
+from textual.containers import VerticalScroll
 from textual.screen import Screen
 from textual.widgets import Footer, Static
 
+from holdfast.review.whatif import WHATIF_CAUTION
 from holdfast.ui.textsafe import safe_text
 from holdfast.ui.widgets.columns import ColumnSpec
 from holdfast.ui.widgets.row_table import RowTable, movement_bindings
@@ -59,6 +61,29 @@ def _change(before: Any, after: Any) -> str:
     if diff == 0:
         return "="
     return f"{diff:+,.0f}" if float(diff).is_integer() and abs(diff) >= 1 else f"{diff:+.4f}"
+
+
+def held_out_status(changed: pd.DataFrame) -> pd.DataFrame:
+    """The changed rows with a held-out row's status in its own words: it is never trained on, so it is
+    not a support row and has no LOO prediction; what changes there is the final model's prediction."""
+    if changed.empty or "held_out" not in changed:
+        return changed
+    held = changed["held_out"].fillna(False).to_numpy(dtype=bool)
+    if not held.any():
+        return changed
+    out = changed.copy()
+    for side in ("before", "after"):
+        miss, pred = out.get(f"loo_miss_{side}"), out.get(f"prediction_{side}")
+        if miss is None or pred is None:
+            continue
+        text = np.array(out[f"status_{side}"].astype(object).to_numpy(), dtype=object)
+        for i in np.flatnonzero(held):
+            if text[i] == "excluded" or pd.isna(miss.iat[i]):
+                continue
+            verdict = "error" if bool(miss.iat[i]) else "correct"
+            text[i] = f"held out, {verdict}, predicted {pred.iat[i]}"
+        out[f"status_{side}"] = text
+    return out
 
 
 def comparison_table(rows: list[tuple[str, Any, Any]]) -> Table:
@@ -102,7 +127,7 @@ class WhatIfScreen(Screen[None]):
             if isinstance(changed, pd.DataFrame)
             else pd.DataFrame(columns=[c.key for c in CHANGED_COLUMNS])
         )
-        with Vertical(id="what-if-body"):
+        with VerticalScroll(id="what-if-body"):
             yield Static(
                 Text(
                     f"What-if: the model refitted with your decisions applied "
@@ -110,6 +135,8 @@ class WhatIfScreen(Screen[None]):
                 ),
                 classes="help-title",
             )
+            caution = getattr(r, "caution", "") or WHATIF_CAUTION
+            yield Static(Text(safe_text(caution)), id="what-if-caution", classes="caution")
             yield Static(comparison_table(list(getattr(r, "comparison", []) or [])), id="what-if-comparison")
             notes = [safe_text(n) for n in getattr(r, "notes", []) or []]
             unmatched = list(getattr(r, "unmatched", []) or [])
@@ -120,6 +147,7 @@ class WhatIfScreen(Screen[None]):
             if notes:
                 yield Static(Text("\n".join(notes)), id="what-if-notes", classes="caution")
             yield Static(Text(f"Rows whose status changes: {len(changed):,}"), classes="help-heading")
+            changed = held_out_status(changed)
             columns = [c for c in CHANGED_COLUMNS if c.key in changed.columns]
             yield ChangedRowsTable(
                 changed.reset_index(drop=True),
@@ -130,7 +158,7 @@ class WhatIfScreen(Screen[None]):
             yield Static(
                 "Nothing here is saved or exported: it is a preview. escape goes back.", classes="dialog-hint"
             )
-        yield Footer()
+        yield Footer(show_command_palette=False)
 
     def on_mount(self) -> None:
         self.query_one("#what-if-changed", RowTable).focus()

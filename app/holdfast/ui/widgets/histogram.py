@@ -49,6 +49,9 @@ class HistogramBars:
         Styles for the bars, the group names and the axis line.
     marker
         A value to mark on the axis (e.g. 0 for margins) when it lies inside the bins; ``None`` for none.
+    current, current_text
+        A value to point at under the axis (the row under the cursor) and the words beside the arrow;
+        a value beyond the bins is pointed at from the nearer end.
     """
 
     def __init__(
@@ -59,8 +62,14 @@ class HistogramBars:
         label_style: Style | str = "",
         axis_style: Style | str = "",
         marker: float | None = 0.0,
+        current: float | None = None,
+        current_text: str = "this row",
+        current_style: Style | str = "",
     ) -> None:
         self.hist = hist
+        self.current = current
+        self.current_text = current_text
+        self.current_style = current_style
         self.bar_style = bar_style
         self.label_style = label_style
         self.axis_style = axis_style
@@ -89,6 +98,8 @@ class HistogramBars:
             line.append(f"{total:,}".rjust(count_w), style=self.label_style)
             out.append(line)
         out.append(self._axis(label_w, drawn))
+        if self.current is not None and not math.isnan(self.current) and drawn > 0:
+            out.append(self._pointer(label_w, drawn, width))
         if h.missing_total:
             out.append(Text(f"{h.missing_total:,} value(s) missing, not drawn", style=self.axis_style))
         return out
@@ -125,6 +136,24 @@ class HistogramBars:
         right = _edge_text(hi)
         put(right, drawn - len(right))
         return Text(" " * (label_w + 1) + "".join(axis), style=self.axis_style, no_wrap=True)
+
+    def _pointer(self, label_w: int, drawn: int, width: int) -> Text:
+        """``▲ this row`` under the bin of ``current`` (the words go left of the arrow near the right end)."""
+        lo, hi = float(self.hist.edges[0]), float(self.hist.edges[-1])
+        value = float(self.current)  # type: ignore[arg-type]
+        at = 0 if value <= lo else drawn - 1 if value >= hi else int((value - lo) / (hi - lo) * drawn)
+        line = max(1, width - label_w - 1)  # the cells the pointer line can use
+        at = min(max(at, 0), min(drawn, line) - 1)
+        for words in (f"{self.current_text} {value:+.2f}", f"{value:+.2f}"):
+            if at + 2 + len(words) <= line:
+                text, start = f"▲ {words}", at
+                break
+            if len(words) + 2 <= at + 1:
+                text, start = f"{words} ▲", at - len(words) - 1
+                break
+        else:
+            text, start = "▲", at
+        return Text(" " * (label_w + 1 + start) + text, style=self.current_style, no_wrap=True)
 
     def __rich_console__(self, console: Console, options: ConsoleOptions) -> RenderResult:
         yield from self.lines(options.max_width)

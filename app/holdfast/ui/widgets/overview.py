@@ -12,6 +12,7 @@ from collections.abc import Mapping, Sequence
 from pathlib import PurePath
 from typing import Any, ClassVar
 
+import pandas as pd
 from rich.console import Console, ConsoleOptions, Group, RenderableType, RenderResult
 from rich.padding import Padding
 from rich.style import Style
@@ -122,6 +123,8 @@ class OverviewPanel(VerticalScroll):
         super().__init__(name=name, id=id, classes=classes)
         self.summary: dict[str, Any] | None = None
         self.margin_hist: Histogram | None = None
+        #: (margin, label) of the row under the cursor, pointed at under the margin histogram
+        self.current: tuple[float, str] | None = None
         #: full published sources under each bound (the whole-screen view); short citations otherwise
         self.full = False
 
@@ -137,6 +140,17 @@ class OverviewPanel(VerticalScroll):
             self.full = full
             self.show(self.summary, self.margin_hist)
 
+    def set_current(self, margin: float | None, label: str = "") -> None:
+        """Point at ``margin`` (the row under the cursor) under the margin histogram; redrawn only when
+        the panel is on screen and the histogram is there."""
+        bad = margin is None or pd.isna(margin)
+        current = None if bad else (float(margin), label)  # type: ignore[arg-type]
+        if current == self.current:
+            return
+        self.current = current
+        if self.margin_hist is not None and self.display and self.region.height > 0:
+            self.show(self.summary, self.margin_hist)
+
     def show(self, summary: dict[str, Any] | None, margin_hist: Histogram | None = None) -> None:
         """Draw ``summary`` (the findings summary dict) and ``margin_hist`` (margins by class)."""
         self.summary = summary
@@ -148,6 +162,13 @@ class OverviewPanel(VerticalScroll):
         blocks = [self._data_block(summary), self._support_block(summary), self._bounds_block(summary)]
         blocks.append(self._classes_block(summary, margin_hist))
         parts: list[RenderableType] = [Columns(blocks)]
+        if summary.get("provisional"):
+            done, total = int(summary.get("loo_done", 0)), int(summary.get("loo_total", 0))
+            note = (
+                f"Provisional: the LOO figures cover the {done:,} of {total:,} refits done so far; "
+                "rows still waiting count by their full-fit margin."
+            )
+            parts.insert(0, Text(note, style=self._s("warning")))
         explanation = summary.get("explanation")
         if explanation:
             svm = (summary.get("family") or {}).get("name", "svm") == "svm"
@@ -274,7 +295,15 @@ class OverviewPanel(VerticalScroll):
         if hist is not None and hist.groups:
             heading = self._heading("Margin by class")
             heading.append("  below 0: the model disagrees with the label", style=self._s("muted"))
-            bars = HistogramBars(hist, bar_style=self._s("bar"), axis_style=self._s("muted"), marker=0.0)
+            margin, label = self.current if self.current is not None else (None, "")
+            bars = HistogramBars(
+                hist,
+                bar_style=self._s("bar"),
+                axis_style=self._s("muted"),
+                marker=0.0,
+                current=margin,
+                current_text=f"this row ({safe_text(label)})" if label else "this row",
+            )
             out += [Text(""), heading, bars]
         return out
 

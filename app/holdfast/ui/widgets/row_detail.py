@@ -99,6 +99,7 @@ class RowDetailPanel(ScrollView):
         self.decision: str | None = None
         self.parts: list[ScorePart] | None = None
         self.provisional = False
+        self.empty = "No row selected."
         self._lines: list[Line] = []
         self._strips: list[Strip] = []
         self._laid_width = -1
@@ -113,6 +114,7 @@ class RowDetailPanel(ScrollView):
         decision: str | None = None,
         parts: list[ScorePart] | None = None,
         provisional: bool = False,
+        empty: str | None = None,
     ) -> None:
         """Draw ``detail``; ``decision`` is the row's current decision as text (e.g. ``"relabel → b"``);
         ``parts`` the score's parts (``holdfast.insight.score.score_parts``); ``provisional`` says the
@@ -122,6 +124,7 @@ class RowDetailPanel(ScrollView):
         self.decision = decision
         self.parts = parts
         self.provisional = provisional
+        self.empty = empty or "No row selected."
         self._relayout()
         if not same_row:
             self.scroll_to(0, 0, animate=False)
@@ -147,7 +150,7 @@ class RowDetailPanel(ScrollView):
     def layout(self, d: RowDetail | None, width: int, decision: str | None = None) -> list[Line]:
         """The panel's lines for ``d`` at ``width`` cells."""
         if d is None:
-            return [[("No row selected.", "muted")]]
+            return [[(self.empty, "muted")]]
         out: list[Line] = []
         out += self._header(d, width, decision)
         if self.parts and not d.held_out:
