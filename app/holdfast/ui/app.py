@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import asyncio
 from pathlib import Path
 from typing import Any, ClassVar
 
@@ -13,6 +14,7 @@ from textual.screen import Screen
 
 from holdfast.data.spec import Spec
 from holdfast.ui.commands import InspectorCommands
+from holdfast.ui.quitting import PromptExecutor
 from holdfast.ui.screens.inspect import InspectContext, InspectScreen
 from holdfast.ui.session import OpenedSession
 from holdfast.ui.theme import DARK, LIGHT, THEMES
@@ -74,10 +76,18 @@ class HoldfastApp(App[int]):
         frame: pd.DataFrame | None = None,
     ) -> None:
         super().__init__()
+        #: the event loop's default executor once mounted (thread workers run there; see ui/quitting.py)
+        self.work_executor: PromptExecutor | None = None
         self.context = InspectContext(Path(data_path), spec, session, scan, frame)
         for theme in THEMES:
             self.register_theme(theme)
         self.theme = DARK.name
+
+    def on_load(self) -> None:
+        # before any screen mounts: thread workers run on the loop's default executor, and quitting must
+        # never wait for a refit in flight (ui/quitting.py)
+        self.work_executor = PromptExecutor(thread_name_prefix="holdfast-work")
+        asyncio.get_running_loop().set_default_executor(self.work_executor)
 
     def action_switch_theme(self) -> None:
         """Dark to light and back."""

@@ -20,6 +20,7 @@ def launch(data_path: Path, spec: Spec, session: Path | None = None) -> int:
     from holdfast.data.load import read_table
     from holdfast.data.prepare import prepare
     from holdfast.ui.app import HoldfastApp
+    from holdfast.ui.quitting import leave_now_if_busy
 
     # A wrong file, column or spec value is a one-line error on the command line (exit 2), not a screen.
     frame = read_table(data_path)
@@ -37,4 +38,4 @@ def launch(data_path: Path, spec: Spec, session: Path | None = None) -> int:
         decided = len(journal.current())
         opened.close()
     print(f"holdfast: session {opened.path} ({decided:,} row(s) with a decision)", file=sys.stderr)
-    return int(code or 0)
+    return leave_now_if_busy(int(code or 0), app.work_executor)  # never wait, blank, for a refit
