@@ -82,6 +82,32 @@ class DirectLoo:
     flipped: dict[int, np.ndarray] = field(default_factory=dict)
 
 
+def refit_outcome(
+    row: int,
+    pred: np.ndarray,
+    dec: np.ndarray | None,
+    y: np.ndarray,
+    full_prediction: np.ndarray,
+    full_decision: np.ndarray,
+) -> RefitOutcome:
+    """What a refit without ``row`` tells, from its predicted codes ``pred`` and decision values ``dec`` for
+    every training row (``dec`` None when the refit has no decision value for every class)."""
+    changed = pred != full_prediction
+    changed[row] = False
+    if dec is None:
+        max_change, loo_margin = float("inf"), float("nan")
+    else:
+        max_change = float(np.max(np.abs(dec - full_decision)))
+        loo_margin = float(signed_margins(dec[row : row + 1], y[row : row + 1])[0])
+    return RefitOutcome(
+        row=row,
+        loo_code=int(pred[row]),
+        flipped=np.flatnonzero(changed).astype(np.int64),
+        max_change=max_change,
+        loo_margin=loo_margin,
+    )
+
+
 @dataclass
 class FittedModel:
     """Fitted state shared by all learner families (arrays over the m training rows).

@@ -34,7 +34,7 @@ from scipy.special import expit
 from threadpoolctl import ThreadpoolController
 
 from holdfast.errors import SpecError
-from holdfast.learners.base import DirectLoo, FittedModel, RefitOutcome, signed_margins
+from holdfast.learners.base import DirectLoo, FittedModel, RefitOutcome, refit_outcome, signed_margins
 
 DEFAULTS: dict[str, Any] = {"C": 1.0, "tol": 1e-8}
 #: Rows whose approximate LOO decision value (own class minus best other) is within this of zero get an
@@ -165,20 +165,7 @@ class LogisticRefitProblem:
         # demo data); the parallel runner gives each refit its own thread instead
         with _blas().limit(limits=1, user_api="blas"):
             pred, dec = self.fit_predict(keep)
-        changed = pred != self.full_prediction
-        changed[row] = False
-        if dec is None:
-            max_change, loo_margin = float("inf"), float("nan")
-        else:
-            max_change = float(np.max(np.abs(dec - self.full_decision)))
-            loo_margin = float(signed_margins(dec[row : row + 1], self.y[row : row + 1])[0])
-        return RefitOutcome(
-            row=row,
-            loo_code=int(pred[row]),
-            flipped=np.flatnonzero(changed).astype(np.int64),
-            max_change=max_change,
-            loo_margin=loo_margin,
-        )
+        return refit_outcome(row, pred, dec, self.y, self.full_prediction, self.full_decision)
 
 
 @dataclass

@@ -33,7 +33,7 @@ import numba
 import numpy as np
 
 from holdfast.errors import SpecError
-from holdfast.learners.base import FittedModel, RefitOutcome, signed_margins
+from holdfast.learners.base import FittedModel, RefitOutcome, refit_outcome, signed_margins
 
 DEFAULTS: dict[str, Any] = {"epochs": 5, "intercept": True}
 
@@ -146,20 +146,7 @@ class PerceptronRefitProblem:
         m = len(self.y)
         keep = np.concatenate([np.arange(row), np.arange(row + 1, m)])
         pred, dec = self.fit_predict(keep, row=row)
-        changed = pred != self.full_prediction
-        changed[row] = False
-        if dec is None:
-            max_change, loo_margin = float("inf"), float("nan")
-        else:
-            max_change = float(np.max(np.abs(dec - self.full_decision)))
-            loo_margin = float(signed_margins(dec[row : row + 1], self.y[row : row + 1])[0])
-        return RefitOutcome(
-            row=row,
-            loo_code=int(pred[row]),
-            flipped=np.flatnonzero(changed).astype(np.int64),
-            max_change=max_change,
-            loo_margin=loo_margin,
-        )
+        return refit_outcome(row, pred, dec, self.y, self.full_prediction, self.full_decision)
 
 
 def novikoff_bound(

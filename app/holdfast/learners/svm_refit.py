@@ -25,8 +25,8 @@ import numpy as np
 from sklearn.svm import SVC
 
 from holdfast.learners import smo, warm
-from holdfast.learners.base import RefitOutcome
-from holdfast.learners.kernels import kernel_matrix, row_margin, submatrix
+from holdfast.learners.base import RefitOutcome, refit_outcome
+from holdfast.learners.kernels import kernel_matrix, submatrix
 from holdfast.learners.pairs import PairState, ovr_from_ovo, refit_pairs, vote_codes
 
 #: Stopping tolerance of our own solver (full fit and warm refits). libsvm's default in holdfast is 1e-6;
@@ -299,16 +299,7 @@ class SVMRefitProblem:
             pred, dec = self._fit_working_set(row)
         else:
             pred, dec = self.fit_predict(keep)
-        changed = pred != self.full_prediction
-        changed[row] = False
-        max_change = float(np.max(np.abs(dec - self.full_decision))) if dec is not None else float("inf")
-        return RefitOutcome(
-            row=row,
-            loo_code=int(pred[row]),
-            flipped=np.flatnonzero(changed).astype(np.int64),
-            max_change=max_change,
-            loo_margin=row_margin(dec[row], int(self.y[row])) if dec is not None else float("nan"),
-        )
+        return refit_outcome(row, pred, dec, self.y, self.full_prediction, self.full_decision)
 
 
 @dataclass

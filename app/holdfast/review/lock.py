@@ -20,6 +20,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from holdfast.review.events import utc_now
+from holdfast.review.sessionfiles import pid_alive
 
 try:  # POSIX
     import fcntl
@@ -111,18 +112,6 @@ def read_holder(path: Path) -> Holder:
         return Holder(0, "", "")
 
 
-def _alive(pid: int) -> bool:
-    if pid <= 0:
-        return False
-    try:
-        os.kill(pid, 0)
-    except ProcessLookupError:
-        return False
-    except OSError:
-        return True  # exists, owned by someone else
-    return True
-
-
 def acquire(session: str | Path) -> SessionLock | None:
     """Take the lock of ``session``; :class:`LockBusy` when another opener holds it.
 
@@ -153,7 +142,7 @@ def _acquire_exclusive(path: Path) -> SessionLock | None:  # pragma: no cover - 
             fd = os.open(path, os.O_RDWR | os.O_CREAT | os.O_EXCL, 0o644)
         except FileExistsError:
             holder = read_holder(path)
-            if holder.host == socket.gethostname() and not _alive(holder.pid):
+            if holder.host == socket.gethostname() and not pid_alive(holder.pid):
                 path.unlink(missing_ok=True)  # stale: its process is gone
                 continue
             raise LockBusy(path, holder) from None

@@ -21,7 +21,8 @@ def temp_name(target: Path) -> Path:
     return target.with_name(f".{target.name}.{os.getpid()}.{secrets.token_hex(8)}.tmp")
 
 
-def _pid_alive(pid: int) -> bool:
+def pid_alive(pid: int) -> bool:
+    """True when a process with this id exists on this machine (signal 0 asks without sending)."""
     if pid <= 0:
         return False
     try:
@@ -49,7 +50,7 @@ def remove_stale_temp_files(target: Path) -> list[Path]:
         return removed
     for entry in entries:
         match = pattern.match(entry.name)
-        if match is None or _pid_alive(int(match.group(1))):
+        if match is None or pid_alive(int(match.group(1))):
             continue
         try:
             os.unlink(entry.path)
