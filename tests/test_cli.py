@@ -180,3 +180,23 @@ def test_second_scan_comes_from_cache(data, tmp_path, capsys):
     assert main(args) == 0
     assert "from cache" in capsys.readouterr().out
     pd.testing.assert_frame_equal(first, pd.read_parquet(tmp_path / "r" / "rows.parquet"))
+
+
+def test_scan_piped_into_a_reader_that_stops_early(data, tmp_path):
+    """`holdfast scan ... | head -1`: the reader closes the pipe; the scan's files are written and no
+    internal error is reported (common practice for command-line tools: a closed stdout is not a failure)."""
+    path, spec, _ = data
+    out = tmp_path / "o"
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "holdfast.cli", "scan", str(path), "--spec", str(spec), "--out", str(out)],
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
+    assert proc.stdout is not None and proc.stderr is not None
+    proc.stdout.readline()  # the first line only, then hang up, as `head -1` does
+    proc.stdout.close()
+    err = proc.stderr.read()
+    assert proc.wait(timeout=300) == 0, err
+    assert "internal error" not in err and "Traceback" not in err
+    assert (out / "rows.parquet").is_file() and (out / "summary.json").is_file()

@@ -291,6 +291,12 @@ def main(argv: list[str] | None = None) -> int:
         end_open_lines()
         print(CANCELLED, file=sys.stderr)
         return 130
+    except BrokenPipeError:
+        # stdout went to a reader that stopped early (`holdfast scan ... | head`): not an error; the files
+        # are written. Point stdout at devnull so the interpreter's final flush does not fail again
+        # (Python documentation, signal module, "Note on SIGPIPE").
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 0
     except Exception as exc:
         end_open_lines()
         if os.environ.get("HOLDFAST_DEBUG"):
