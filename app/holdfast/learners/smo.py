@@ -62,13 +62,41 @@ def _compute_row(X, r, kind, gamma, degree, coef0, idx, out):
 
 
 @njit(nogil=True, cache=True)
-def _fetch(t, keep, K, X, kind, gamma, degree, coef0, idx, ident, cache, slot_of, owner, state):
-    """Kernel values K(x_idx[t], x_idx[q]) for every position q: a row of K, or a cached gathered row.
+def _combo_rows(M, mrows, coef, idx, all_cols, out):
+    """out[q] += sum_k coef_k M[mrows_k, idx_q] (every column when ``all_cols``), without copying rows."""
+    for k in range(mrows.shape[0]):
+        r = M[mrows[k]]
+        c = coef[k]
+        if all_cols:
+            for q in range(out.shape[0]):
+                out[q] += c * r[q]
+        else:
+            for q in range(out.shape[0]):
+                out[q] += c * r[idx[q]]
 
-    ``keep`` is a position whose cached row must not be evicted (the other row of the current pair).
+
+@njit(nogil=True, cache=True)
+def _gather(M, mrows, cols, out):
+    """out[k, q] = M[mrows_k, cols_q]."""
+    for k in range(mrows.shape[0]):
+        r = M[mrows[k]]
+        for q in range(cols.shape[0]):
+            out[k, q] = r[cols[q]]
+
+
+@njit(nogil=True, cache=True)
+def _fetch(t, keep, K, X, kind, gamma, degree, coef0, idx, ident, cache, slot_of, owner, state, KW, wpos, wall):
+    """Kernel values K(x_idx[t], x_idx[q]) for every position q: a row of K, a row of the stored block
+    ``KW`` (rows ``wpos`` >= 0 against every training row), or a cached gathered or computed row.
+
+    ``keep`` is a position whose cached row must not be evicted (the other row of the current pair);
+    ``wall``: ``idx`` is every training row in order, so a row of ``KW`` is used as it is.
     """
     if ident:
         return K[idx[t]]
+    w = wpos[idx[t]] if wpos.shape[0] > 0 else -1
+    if w >= 0 and wall:
+        return KW[w]
     s = slot_of[t]
     if s >= 0:
         return cache[s]
@@ -82,7 +110,11 @@ def _fetch(t, keep, K, X, kind, gamma, degree, coef0, idx, ident, cache, slot_of
     owner[s] = t
     slot_of[t] = s
     row = cache[s]
-    if K.shape[0] > 0:
+    if w >= 0:
+        kr = KW[w]
+        for q in range(idx.shape[0]):
+            row[q] = kr[idx[q]]
+    elif K.shape[0] > 0:
         kr = K[idx[t]]
         for q in range(idx.shape[0]):
             row[q] = kr[idx[q]]
@@ -93,7 +125,7 @@ def _fetch(t, keep, K, X, kind, gamma, degree, coef0, idx, ident, cache, slot_of
 
 @njit(nogil=True, cache=True)
 def _unshrink(
-    K, X, kind, gamma, degree, coef0, idx, ident, y, G, dacc, touched, act, cache, slot_of, owner, state
+    K, X, kind, gamma, degree, coef0, idx, ident, y, G, dacc, touched, act, cache, slot_of, owner, state, KW, wpos, wall
 ):
     """Bring the gradient of the rows outside ``act`` up to date: G_t += y_t sum_s dacc_s K_st."""
     n = idx.shape[0]
@@ -102,7 +134,7 @@ def _unshrink(
         inside[t] = True
     for s in range(n):
         if touched[s] and dacc[s] != 0.0:
-            Ks = _fetch(s, -1, K, X, kind, gamma, degree, coef0, idx, ident, cache, slot_of, owner, state)
+            Ks = _fetch(s, -1, K, X, kind, gamma, degree, coef0, idx, ident, cache, slot_of, owner, state, KW, wpos, wall)
             d = dacc[s]
             for t in range(n):
                 if not inside[t]:
@@ -112,7 +144,9 @@ def _unshrink(
 
 
 @njit(nogil=True, cache=True)
-def _smo(K, X, kind, gamma, degree, coef0, idx, ident, y, C, QD, alpha, G, eps, max_iter, ncache, act):
+def _smo(
+    K, X, kind, gamma, degree, coef0, idx, ident, y, C, QD, alpha, G, eps, max_iter, ncache, act, KW, wpos, wall
+):
     """SMO with second-order working-set selection until m(a) - M(a) < eps; alpha and G in place.
 
     ``act`` lists the positions SMO works on first (shrinking, Joachims 1999, "Making large-scale SVM
@@ -164,12 +198,15 @@ def _smo(K, X, kind, gamma, degree, coef0, idx, ident, y, C, QD, alpha, G, eps, 
                     slot_of,
                     owner,
                     state,
+                    KW,
+                    wpos,
+                    wall,
                 )
                 act = np.arange(n)
                 shrunk = False
                 continue
             break
-        Ki = _fetch(i, -1, K, X, kind, gamma, degree, coef0, idx, ident, cache, slot_of, owner, state)
+        Ki = _fetch(i, -1, K, X, kind, gamma, degree, coef0, idx, ident, cache, slot_of, owner, state, KW, wpos, wall)
         # j: in I_low, the largest second-order decrease of the objective (Fan, Chen & Lin 2005, WSS 2)
         gmax2 = -np.inf
         j = -1
@@ -215,14 +252,17 @@ def _smo(K, X, kind, gamma, degree, coef0, idx, ident, y, C, QD, alpha, G, eps, 
                     slot_of,
                     owner,
                     state,
+                    KW,
+                    wpos,
+                    wall,
                 )
                 act = np.arange(n)
                 shrunk = False
                 continue
             break
         it += 1
-        Kj = _fetch(j, i, K, X, kind, gamma, degree, coef0, idx, ident, cache, slot_of, owner, state)
-        if not ident:  # the fetch of j may have reused a slot; i's row is kept (see _fetch)
+        Kj = _fetch(j, i, K, X, kind, gamma, degree, coef0, idx, ident, cache, slot_of, owner, state, KW, wpos, wall)
+        if not ident and slot_of[i] >= 0:  # the fetch of j may have reused a slot; i's row is kept
             Ki = cache[slot_of[i]]
         ci = C[i]
         cj = C[j]
@@ -297,6 +337,9 @@ def _smo(K, X, kind, gamma, degree, coef0, idx, ident, y, C, QD, alpha, G, eps, 
             slot_of,
             owner,
             state,
+            KW,
+            wpos,
+            wall,
         )
     return it
 
@@ -336,7 +379,12 @@ def max_iterations(n: int) -> int:
 
 
 class Kernel:
-    """Where kernel rows come from: a precomputed matrix, or X with the kernel's parameters."""
+    """Where kernel rows come from: a precomputed matrix, or X with the kernel's parameters.
+
+    Without the matrix, ``KW`` may hold the kernel rows of some training rows (``wpos[t]`` is row t's
+    place in ``KW``, -1 for rows outside it) against every training row: the rows a refit touches most
+    (support rows and rows near the margin) are then read, not computed.
+    """
 
     def __init__(
         self,
@@ -347,6 +395,8 @@ class Kernel:
         degree: int = 3,
         coef0: float = 0.0,
         cache_rows: int = 256,
+        KW: np.ndarray | None = None,
+        wpos: np.ndarray | None = None,
     ) -> None:
         self.K = K if K is not None else np.empty((0, 0))
         self.X = np.ascontiguousarray(X, dtype=np.float64) if X is not None else np.empty((0, 1))
@@ -355,6 +405,8 @@ class Kernel:
         self.degree = int(degree)
         self.coef0 = float(coef0)
         self.cache_rows = int(cache_rows)
+        self.KW = KW if KW is not None else np.empty((0, 0))
+        self.wpos = np.asarray(wpos, dtype=np.int64) if wpos is not None else np.empty(0, dtype=np.int64)
 
     @property
     def precomputed(self) -> bool:
@@ -384,12 +436,21 @@ class Kernel:
         n = self.n_rows if idx is None else len(idx)
         if len(rows) == 0:
             return np.zeros(n)
+        rows = np.asarray(rows, dtype=np.int64)
+        coef = np.ascontiguousarray(coef, dtype=np.float64)
+        cols = np.empty(0, dtype=np.int64) if idx is None else np.asarray(idx, dtype=np.int64)
+        out = np.zeros(n)
         if self.precomputed:
-            return coef @ self.rows(rows, idx)
+            _combo_rows(self.K, rows, coef, cols, idx is None, out)
+            return out
         Xc = self.X if idx is None else self.X[idx]
         if self.kind == 0:
             return Xc @ (coef @ self.X[rows])
-        out = np.zeros(n)
+        if self.wpos.shape[0]:  # stored rows are read, the others computed
+            have = self.wpos[rows]
+            stored = have >= 0
+            _combo_rows(self.KW, have[stored], coef[stored], cols, idx is None, out)
+            rows, coef = rows[~stored], coef[~stored]
         step = max(1, COMBO_CHUNK_VALUES // max(n, 1))
         for k in range(0, len(rows), step):
             out += coef[k : k + step] @ self.rows(rows[k : k + step], idx)
@@ -401,12 +462,28 @@ class Kernel:
             if self.precomputed:
                 return self.K[rows]
             idx = np.arange(self.X.shape[0])
-        if self.precomputed:
-            return self.K[np.ix_(rows, idx)]
+            full = True
+        else:
+            full = False
         out = np.empty((len(rows), len(idx)))
-        for k, r in enumerate(rows):
-            _compute_row(self.X, int(r), self.kind, self.gamma, self.degree, self.coef0, idx, out[k])
+        if self.precomputed:
+            _gather(self.K, np.asarray(rows, dtype=np.int64), np.asarray(idx, dtype=np.int64), out)
+            return out
+        have = self.wpos[rows] if self.wpos.shape[0] else np.full(len(rows), -1)
+        stored = have >= 0
+        if stored.all() and not full:
+            _gather(self.KW, have, np.asarray(idx, dtype=np.int64), out)
+        elif stored.any():
+            out[stored] = self.KW[have[stored]] if full else self.KW[np.ix_(have[stored], idx)]
+        for k in np.flatnonzero(~stored):
+            _compute_row(self.X, int(rows[k]), self.kind, self.gamma, self.degree, self.coef0, idx, out[k])
         return out
+
+
+def _is_all_rows(kernel: Kernel, idx: np.ndarray) -> bool:
+    """True when ``kernel`` stores rows (``KW``) and ``idx`` is every training row in order."""
+    n = kernel.wpos.shape[0]
+    return bool(n > 0 and len(idx) == n and np.array_equal(idx, np.arange(n)))
 
 
 def solve(
@@ -451,6 +528,9 @@ def solve(
             max_iterations(len(idx)) if max_iter is None else int(max_iter),
             max(2, ncache),
             np.arange(len(idx)) if active is None else np.ascontiguousarray(active, dtype=np.int64),
+            kernel.KW,
+            kernel.wpos,
+            _is_all_rows(kernel, idx),
         )
     )
 

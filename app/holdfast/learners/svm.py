@@ -24,7 +24,7 @@ import numpy as np
 from sklearn.svm import SVC
 
 from holdfast.errors import SpecError
-from holdfast.learners import smo
+from holdfast.learners import smo, warm
 from holdfast.learners.base import FittedModel, signed_margins
 from holdfast.learners.kernels import kernel_matrix, resolve_gamma, row_margin, submatrix
 from holdfast.learners.pairs import PairModel, fit_pairs, pair_decision, vote_codes
@@ -207,12 +207,18 @@ class SVMLearner:
         clf: SVC | DualModel | PairModel
         own: DualModel | PairModel | None = None
         kernel: smo.Kernel | None = None
+        seed_svc: SVC | None = None
         if self.solver == "own" and K is not None:
             kernel = smo.Kernel(K=K)
+        elif self.solver == "own" and n_classes == 2:
+            # above the limit: libsvm's cold fit (shrinking, its own kernel cache) is the start, our solver
+            # takes it to WARM_TOL with the most used kernel rows stored, and every refit starts from it
+            seed_svc = SVC(**svc_params).fit(X, y)
+            kernel = self._stored_rows_kernel(X, y, seed_svc)
         elif self.solver == "own" and self.kernel == "linear":  # no m x m matrix: K(x_i, .) = X x_i
             kernel = smo.Kernel(X=X, kind="linear", cache_rows=LINEAR_CACHE_ROWS)
         if kernel is not None and n_classes == 2:
-            own = self._fit_own(kernel, y, row_c, problem)
+            own = self._fit_own(kernel, y, row_c, problem, seed_svc)
         elif kernel is not None and np.all(np.bincount(y, minlength=n_classes) > 0):
             own = self._fit_own_pairs(kernel, y, row_c, n_classes, problem)
         self.svc_on_X_ = False
@@ -220,8 +226,11 @@ class SVMLearner:
             # a training decision value within the tie tolerance of 0: the full model is the reference's
             # own computation (libsvm computing the kernel from X), so that its sign is the reference's;
             # refits still start warm from our solution (an optimum of the same problem)
-            clf = SVC(kernel=self.kernel, gamma=gamma, degree=self.degree, coef0=self.coef0, **svc_params)
-            clf.fit(X, y)
+            if seed_svc is not None:  # already fitted on X above the limit
+                clf = seed_svc
+            else:
+                clf = SVC(kernel=self.kernel, gamma=gamma, degree=self.degree, coef0=self.coef0, **svc_params)
+                clf.fit(X, y)
             self.svc_on_X_ = True
         elif own is not None:
             clf = own
@@ -281,14 +290,48 @@ class SVMLearner:
             extras=extras,
         )
 
+    def _stored_rows_kernel(self, X: np.ndarray, y: np.ndarray, seed: SVC) -> smo.Kernel:
+        """Kernel rows from X, with the rows refits use most stored (``smo.Kernel.KW``): support rows and
+        rows near the margin under ``seed``, closest to the margin first, up to ``WORKING_ROWS_MAX_BYTES``
+        (none for the linear kernel, whose sums go through the primal vector)."""
+        m = len(y)
+        args = dict(kind=self.kernel, gamma=self.gamma_, degree=self.degree, coef0=self.coef0)
+        if self.kernel == "linear":
+            return smo.Kernel(X=X, cache_rows=LINEAR_CACHE_ROWS, **args)  # type: ignore[arg-type]
+        ypm = np.where(y == 1, 1.0, -1.0)
+        yf = ypm * seed.decision_function(X)
+        support = np.zeros(m, dtype=bool)
+        support[seed.support_] = True
+        near = np.flatnonzero(support | (yf < 1.0 + WORKING_SET_SLACK))
+        budget = max(0, int(WORKING_ROWS_MAX_BYTES // (8 * m)))
+        rows = near[np.argsort(np.abs(yf[near] - 1.0), kind="stable")][:budget]
+        rows = np.sort(rows)
+        wpos = np.full(m, -1, dtype=np.int64)
+        wpos[rows] = np.arange(len(rows))
+        KW = np.empty((len(rows), m))
+        for k in range(0, len(rows), 512):
+            KW[k : k + 512] = kernel_matrix(X[rows[k : k + 512]], X, self.kernel, self.gamma_, self.degree, self.coef0)
+        return smo.Kernel(X=X, cache_rows=LINEAR_CACHE_ROWS, KW=KW, wpos=wpos, **args)  # type: ignore[arg-type]
+
     def _fit_own(
-        self, kernel: smo.Kernel, y: np.ndarray, row_c: np.ndarray, problem: SVMRefitProblem
+        self,
+        kernel: smo.Kernel,
+        y: np.ndarray,
+        row_c: np.ndarray,
+        problem: SVMRefitProblem,
+        seed: SVC | None = None,
     ) -> DualModel:
-        """Two classes: our own SMO solver (holdfast.learners.smo), to ``WARM_TOL``; the solution is kept
-        in ``problem`` as the warm start of every refit."""
+        """Two classes: our own SMO solver (holdfast.learners.smo), to ``WARM_TOL``, cold or from the
+        solution of ``seed`` (libsvm's fit, above the limit); the solution is kept in ``problem`` as the
+        warm start of every refit."""
         m = len(y)
         ypm = np.where(y == 1, 1.0, -1.0)
-        alpha, grad, rho, _ = smo.fit_dual(kernel, np.arange(m), ypm, row_c.astype(np.float64), WARM_TOL)
+        if seed is None:
+            alpha, grad, rho, _ = smo.fit_dual(kernel, np.arange(m), ypm, row_c.astype(np.float64), WARM_TOL)
+        else:
+            alpha = np.zeros(m)
+            alpha[seed.support_] = np.abs(seed.dual_coef_[0])
+            alpha, grad, rho = warm.tighten(kernel, ypm, row_c.astype(np.float64), alpha, WARM_TOL)
         problem.solver = kernel
         problem.alpha, problem.grad, problem.c_row = alpha, grad, row_c.astype(np.float64)
         problem.qd = kernel.diag(np.arange(m))

@@ -176,9 +176,17 @@ class SVMRefitProblem:
         clf = SVC(kernel=kernel, gamma=gamma, degree=degree, coef0=coef0, **params).fit(
             self.X_ref[keep], self.y[keep]
         )
-        pred = clf.predict(self.X_ref)
         dec = clf.decision_function(self.X_ref)
         full = np.unique(self.y[keep]).size == self.n_classes
+        if dec.ndim == 1:
+            # two classes: the sign of the decision value is libsvm's prediction; at an exact 0 the two
+            # differ (sklearn negates libsvm's value), so those rows ask SVC.predict, the reference's call
+            pred = np.where(dec > 0, clf.classes_[1], clf.classes_[0])
+            zero = np.flatnonzero(dec == 0)
+            if len(zero):
+                pred[zero] = clf.predict(self.X_ref[zero])
+        else:
+            pred = clf.predict(self.X_ref)
         return pred.astype(np.int64), (dec if full else None)
 
     def _fit_working_set(self, row: int) -> tuple[np.ndarray, np.ndarray | None]:
