@@ -113,15 +113,22 @@ def test_parallel_refits_match_serial(cancer_subsample):
     assert np.array_equal(serial.flip_count, parallel.flip_count)
 
 
-def test_no_precompute_path_matches(cancer_subsample):
-    """Above the precompute limit the learner lets libsvm compute the kernel: same LOO predictions."""
+@pytest.mark.parametrize("solver", ["own", "libsvm"])
+def test_no_precompute_path_matches(cancer_subsample, solver):
+    """Above the precompute limit no m x m kernel matrix is kept: same LOO predictions and flip counts.
+    Our solver refits warm from libsvm's cold fit with the most used kernel rows stored; the libsvm engine
+    solves each refit on a working set."""
     X, y = cancer_subsample
     a = SVMLearner(kernel="rbf", C=1.0)
-    b = SVMLearner(kernel="rbf", C=1.0, precompute_max_rows=10)
+    b = SVMLearner(kernel="rbf", C=1.0, precompute_max_rows=10, solver=solver)
     ma, mb = a.fit(X, y), b.fit(X, y)
     assert np.array_equal(ma.support, mb.support)
     assert a.refit_problem().K is not None and b.refit_problem().K is None
-    assert b.refit_problem().KW is not None  # working-set kernel rows: the fast path above the limit
+    if solver == "own":
+        kernel = b.refit_problem().solver
+        assert kernel is not None and 0 < kernel.KW.shape[0] < len(y)  # support rows and rows near the margin
+    else:
+        assert b.refit_problem().KW is not None  # working-set kernel rows
     ra = exact_loo(ma, a.refit_problem())
     rb = exact_loo(mb, b.refit_problem())
     assert np.array_equal(ra.loo_code, rb.loo_code)
@@ -140,7 +147,7 @@ def test_working_set_rows_above_the_limit_match_leave_one_out(cancer_subsample, 
 
     monkeypatch.setattr(svm, "WORKING_SET_SLACK", slack)
     X, y = cancer_subsample
-    learner = SVMLearner(kernel="rbf", C=10.0, gamma=0.05, precompute_max_rows=10)
+    learner = SVMLearner(kernel="rbf", C=10.0, gamma=0.05, precompute_max_rows=10, solver="libsvm")
     model = learner.fit(X, y)
     problem = learner.refit_problem()
     assert problem.KW is not None and len(problem.working) < len(y)
@@ -157,7 +164,7 @@ def test_working_set_kernel_rows_equal_the_full_kernel(cancer_subsample):
     from sklearn.metrics.pairwise import rbf_kernel
 
     X, y = cancer_subsample
-    learner = SVMLearner(kernel="rbf", C=1.0, precompute_max_rows=10)
+    learner = SVMLearner(kernel="rbf", C=1.0, precompute_max_rows=10, solver="libsvm")
     learner.fit(X, y)
     problem = learner.refit_problem()
     K = rbf_kernel(X, gamma=learner.gamma_)
@@ -168,6 +175,50 @@ def test_working_set_kernel_rows_equal_the_full_kernel(cancer_subsample):
     assert np.allclose(problem._kernel_block(rows, cols), K[np.ix_(rows, cols)])
     coef = np.linspace(-1.0, 1.0, len(rows))
     assert np.allclose(problem._decision_all(rows, coef, 0.25), coef @ K[rows] + 0.25)
+
+
+@pytest.mark.parametrize("stored", [0, 25, 10_000])
+def test_own_refits_above_the_limit_match_leave_one_out(cancer_subsample, monkeypatch, stored):
+    """Above the precompute limit our warm refits read the stored kernel rows (``smo.Kernel.KW``) and compute
+    the others from X: LOO predictions equal scikit-learn's LeaveOneOut (Pedregosa et al. 2011,
+    "Scikit-learn: machine learning in Python", JMLR 12) and flip counts equal full SVC refits, with no
+    row stored, a few, and all that qualify."""
+    import holdfast.learners.svm as svm
+
+    X, y = cancer_subsample
+    monkeypatch.setattr(svm, "WORKING_ROWS_MAX_BYTES", stored * 8 * len(y))
+    learner = SVMLearner(kernel="rbf", C=10.0, gamma=0.05, precompute_max_rows=10)
+    model = learner.fit(X, y)
+    kernel = learner.refit_problem().solver
+    assert kernel is not None and kernel.KW.shape[0] == min(stored, kernel.KW.shape[0])
+    assert (kernel.KW.shape[0] == stored) == (stored < 100)
+    result = exact_loo(model, learner.refit_problem())
+    assert int((result.loo_code != _reference_loo(X, y, learner)).sum()) == 0
+    rows = np.flatnonzero(model.support)[::5]
+    assert np.array_equal(result.flip_count[rows], _reference_flips(X, y, learner, model.prediction, rows))
+
+
+def test_stored_kernel_rows_equal_the_full_kernel():
+    """``smo.Kernel`` with some rows stored: blocks and sums of kernel rows equal scikit-learn's
+    ``rbf_kernel`` whether a row is stored or computed from X."""
+    from sklearn.metrics.pairwise import rbf_kernel
+
+    from holdfast.learners import smo
+
+    X = np.random.default_rng(3).normal(size=(40, 3))
+    K = rbf_kernel(X, gamma=0.3)
+    stored = np.array([2, 5, 11, 30])
+    wpos = np.full(40, -1)
+    wpos[stored] = np.arange(4)
+    kernel = smo.Kernel(X=X, kind="rbf", gamma=0.3, KW=K[stored].copy(), wpos=wpos)
+    rows = np.array([5, 7, 30, 0, 2])
+    cols = np.array([1, 5, 39, 2])
+    assert np.allclose(kernel.rows(rows, cols), K[np.ix_(rows, cols)])
+    assert np.allclose(kernel.rows(stored[:2], cols), K[np.ix_(stored[:2], cols)])
+    assert np.allclose(kernel.rows(rows, None), K[rows])
+    coef = np.array([0.5, -1.0, 2.0, 0.25, -0.75])
+    assert np.allclose(kernel.combo(rows, coef, None), coef @ K[rows])
+    assert np.allclose(kernel.combo(rows, coef, cols), coef @ K[np.ix_(rows, cols)])
 
 
 @pytest.mark.parametrize("limit", [12_000, 10])
