@@ -85,7 +85,9 @@ def _gather(M, mrows, cols, out):
 
 
 @njit(nogil=True, cache=True)
-def _fetch(t, keep, K, X, kind, gamma, degree, coef0, idx, ident, cache, slot_of, owner, state, KW, wpos, wall):
+def _fetch(
+    t, keep, K, X, kind, gamma, degree, coef0, idx, ident, cache, slot_of, owner, state, KW, wpos, wall
+):
     """Kernel values K(x_idx[t], x_idx[q]) for every position q: a row of K, a row of the stored block
     ``KW`` (rows ``wpos`` >= 0 against every training row), or a cached gathered or computed row.
 
@@ -125,7 +127,26 @@ def _fetch(t, keep, K, X, kind, gamma, degree, coef0, idx, ident, cache, slot_of
 
 @njit(nogil=True, cache=True)
 def _unshrink(
-    K, X, kind, gamma, degree, coef0, idx, ident, y, G, dacc, touched, act, cache, slot_of, owner, state, KW, wpos, wall
+    K,
+    X,
+    kind,
+    gamma,
+    degree,
+    coef0,
+    idx,
+    ident,
+    y,
+    G,
+    dacc,
+    touched,
+    act,
+    cache,
+    slot_of,
+    owner,
+    state,
+    KW,
+    wpos,
+    wall,
 ):
     """Bring the gradient of the rows outside ``act`` up to date: G_t += y_t sum_s dacc_s K_st."""
     n = idx.shape[0]
@@ -134,7 +155,25 @@ def _unshrink(
         inside[t] = True
     for s in range(n):
         if touched[s] and dacc[s] != 0.0:
-            Ks = _fetch(s, -1, K, X, kind, gamma, degree, coef0, idx, ident, cache, slot_of, owner, state, KW, wpos, wall)
+            Ks = _fetch(
+                s,
+                -1,
+                K,
+                X,
+                kind,
+                gamma,
+                degree,
+                coef0,
+                idx,
+                ident,
+                cache,
+                slot_of,
+                owner,
+                state,
+                KW,
+                wpos,
+                wall,
+            )
             d = dacc[s]
             for t in range(n):
                 if not inside[t]:
@@ -145,7 +184,26 @@ def _unshrink(
 
 @njit(nogil=True, cache=True)
 def _smo(
-    K, X, kind, gamma, degree, coef0, idx, ident, y, C, QD, alpha, G, eps, max_iter, ncache, act, KW, wpos, wall
+    K,
+    X,
+    kind,
+    gamma,
+    degree,
+    coef0,
+    idx,
+    ident,
+    y,
+    C,
+    QD,
+    alpha,
+    G,
+    eps,
+    max_iter,
+    ncache,
+    act,
+    KW,
+    wpos,
+    wall,
 ):
     """SMO with second-order working-set selection until m(a) - M(a) < eps; alpha and G in place.
 
@@ -206,7 +264,9 @@ def _smo(
                 shrunk = False
                 continue
             break
-        Ki = _fetch(i, -1, K, X, kind, gamma, degree, coef0, idx, ident, cache, slot_of, owner, state, KW, wpos, wall)
+        Ki = _fetch(
+            i, -1, K, X, kind, gamma, degree, coef0, idx, ident, cache, slot_of, owner, state, KW, wpos, wall
+        )
         # j: in I_low, the largest second-order decrease of the objective (Fan, Chen & Lin 2005, WSS 2)
         gmax2 = -np.inf
         j = -1
@@ -261,7 +321,9 @@ def _smo(
                 continue
             break
         it += 1
-        Kj = _fetch(j, i, K, X, kind, gamma, degree, coef0, idx, ident, cache, slot_of, owner, state, KW, wpos, wall)
+        Kj = _fetch(
+            j, i, K, X, kind, gamma, degree, coef0, idx, ident, cache, slot_of, owner, state, KW, wpos, wall
+        )
         if not ident and slot_of[i] >= 0:  # the fetch of j may have reused a slot; i's row is kept
             Ki = cache[slot_of[i]]
         ci = C[i]

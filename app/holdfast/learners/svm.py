@@ -26,6 +26,7 @@ from sklearn.svm import SVC
 from holdfast.errors import SpecError
 from holdfast.learners import smo, warm
 from holdfast.learners.base import FittedModel, signed_margins
+from holdfast.learners.face import FaceInverse
 from holdfast.learners.kernels import kernel_matrix, resolve_gamma, row_margin, submatrix
 from holdfast.learners.pairs import PairModel, fit_pairs, pair_decision, vote_codes
 from holdfast.learners.svm_refit import WARM_TOL, DualModel, SVMRefitProblem, tie_tolerance
@@ -310,7 +311,9 @@ class SVMLearner:
         wpos[rows] = np.arange(len(rows))
         KW = np.empty((len(rows), m))
         for k in range(0, len(rows), 512):
-            KW[k : k + 512] = kernel_matrix(X[rows[k : k + 512]], X, self.kernel, self.gamma_, self.degree, self.coef0)
+            KW[k : k + 512] = kernel_matrix(
+                X[rows[k : k + 512]], X, self.kernel, self.gamma_, self.degree, self.coef0
+            )
         return smo.Kernel(X=X, cache_rows=LINEAR_CACHE_ROWS, KW=KW, wpos=wpos, **args)  # type: ignore[arg-type]
 
     def _fit_own(
@@ -335,6 +338,7 @@ class SVMLearner:
         problem.solver = kernel
         problem.alpha, problem.grad, problem.c_row = alpha, grad, row_c.astype(np.float64)
         problem.qd = kernel.diag(np.arange(m))
+        problem.face = FaceInverse.build(kernel, np.arange(m), ypm, alpha, problem.c_row)
         dec = ypm * (grad + 1.0) - rho
         problem.near = ypm * dec < 1.0 + WORKING_SET_SLACK
         return DualModel.from_dual(alpha, ypm, rho, dec, self._args())

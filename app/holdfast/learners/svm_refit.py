@@ -26,6 +26,7 @@ from sklearn.svm import SVC
 
 from holdfast.learners import smo, warm
 from holdfast.learners.base import RefitOutcome, refit_outcome
+from holdfast.learners.face import FaceInverse
 from holdfast.learners.kernels import kernel_matrix, submatrix
 from holdfast.learners.pairs import PairState, ovr_from_ovo, refit_pairs, vote_codes
 
@@ -104,6 +105,8 @@ class SVMRefitProblem:
     #: rows a warm refit's SMO works on first (y f(x) < 1 + slack under the full model, plus every row
     #: with a non-zero alpha): shrinking, exact either way (smo._smo)
     near: np.ndarray | None = None
+    #: the inverse over the full solution's free rows, for cheap Newton steps in refits (learners.face)
+    face: FaceInverse | None = None
     eps: float = WARM_TOL
     #: more than two classes, our own solver: the one-vs-one machines and their decision values
     pairs: list[PairState] | None = None
@@ -269,7 +272,7 @@ class SVMRefitProblem:
         alpha, grad, c = self.alpha.copy(), self.grad.copy(), self.c_row.copy()
         idx = np.arange(m)
         rho, _ = warm.refit_without(
-            self.solver, idx, ypm, c, alpha, grad, row, self.eps, True, self.qd, self.near
+            self.solver, idx, ypm, c, alpha, grad, row, self.eps, True, self.qd, self.near, self.face
         )
         dec = ypm * (grad + 1.0) - rho
         if not self._intercept_is_unique(dec, -rho, row) or self._near_zero(dec, alpha):
