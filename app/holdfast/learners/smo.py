@@ -183,6 +183,48 @@ def _unshrink(
 
 
 @njit(nogil=True, cache=True)
+def _grown(act, y, C, alpha, G, eps):
+    """After the rows outside ``act`` got their gradient: ``act`` plus every outside row that could form a
+    violating pair with an active row (so SMO stays shrunk), all rows when only outside rows violate
+    together, or an empty array when every row meets the stopping rule ``m(a) - M(a) < eps``."""
+    n = y.shape[0]
+    inside = np.zeros(n, dtype=np.bool_)
+    for t in act:
+        inside[t] = True
+    m_act = -np.inf  # max -y G over I_up, active rows
+    big_m_act = np.inf  # min -y G over I_low, active rows
+    m_all = -np.inf
+    big_m_all = np.inf
+    for t in range(n):
+        v = -y[t] * G[t]
+        up = (y[t] > 0 and alpha[t] < C[t]) or (y[t] < 0 and alpha[t] > 0)
+        low = (y[t] > 0 and alpha[t] > 0) or (y[t] < 0 and alpha[t] < C[t])
+        if up:
+            m_all = max(m_all, v)
+            if inside[t]:
+                m_act = max(m_act, v)
+        if low:
+            big_m_all = min(big_m_all, v)
+            if inside[t]:
+                big_m_act = min(big_m_act, v)
+    if m_all - big_m_all < eps:
+        return np.empty(0, dtype=np.int64)
+    extra = 0
+    for t in range(n):
+        if inside[t]:
+            continue
+        v = -y[t] * G[t]
+        up = (y[t] > 0 and alpha[t] < C[t]) or (y[t] < 0 and alpha[t] > 0)
+        low = (y[t] > 0 and alpha[t] > 0) or (y[t] < 0 and alpha[t] < C[t])
+        if (up and v > big_m_act) or (low and v < m_act):
+            inside[t] = True
+            extra += 1
+    if extra == 0:
+        return np.arange(n)
+    return np.flatnonzero(inside)
+
+
+@njit(nogil=True, cache=True)
 def _smo(
     K,
     X,
@@ -212,8 +254,9 @@ def _smo(
 
     ``act`` lists the positions SMO works on first (shrinking, Joachims 1999, "Making large-scale SVM
     learning practical"; libsvm's variant in Chang & Lin 2011, section 5.1): the gradient of the others is
-    brought up to date from the accumulated alpha changes once the active rows are optimal, and SMO goes
-    on over all rows until every row meets the stopping rule, so the result does not depend on ``act``.
+    brought up to date from the accumulated alpha changes once the active rows are optimal; the rows that
+    then violate the stopping rule with an active row join the active rows (``_grown``) and SMO goes on,
+    until every row meets the stopping rule, so the result does not depend on ``act``.
     ``dacc``/``touched`` carry the accumulated changes (``dacc_s`` = change of y_s a_s) between calls; with
     ``defer`` the run stops when the active rows are optimal and leaves the other rows' gradient to a
     later call without ``defer`` (which brings it up to date once). Returns the number of pair updates.
@@ -266,8 +309,11 @@ def _smo(
                     wpos,
                     wall,
                 )
-                act = np.arange(n)
-                shrunk = False
+                act = _grown(act, y, C, alpha, G, eps)
+                if act.shape[0] == 0:  # every row meets the stopping rule
+                    shrunk = False
+                    break
+                shrunk = act.shape[0] < n
                 continue
             break
         Ki = _fetch(
@@ -322,8 +368,11 @@ def _smo(
                     wpos,
                     wall,
                 )
-                act = np.arange(n)
-                shrunk = False
+                act = _grown(act, y, C, alpha, G, eps)
+                if act.shape[0] == 0:  # every row meets the stopping rule
+                    shrunk = False
+                    break
+                shrunk = act.shape[0] < n
                 continue
             break
         it += 1
