@@ -118,7 +118,7 @@ def test_primal_solver_matches_kernel_row_solver(n, p, C, seed, warm):
     alpha, G, rho = smo_linear.fit_dual(kernel, ypm, Cv, 1e-9, start)
     _check_optimal(X, ypm, Cv, alpha, G, 1e-9)
     K = X @ X.T
-    a2, G2, rho2, _ = smo.fit_dual(smo.Kernel(K=K), np.arange(n), ypm, Cv, 1e-9)
+    a2, _, rho2, _ = smo.fit_dual(smo.Kernel(K=K), np.arange(n), ypm, Cv, 1e-9)
     # the primal w is unique (strictly convex in w); both solutions give the same w to the tolerance
     w1, w2 = X.T @ (alpha * ypm), X.T @ (a2 * ypm)
     scale = max(1.0, float(np.abs(w2).max()))
