@@ -310,8 +310,8 @@ def face_steps(X: np.ndarray, y: np.ndarray, C: np.ndarray, alpha: np.ndarray, G
     the target tolerance, so the result does not depend on these steps. Returns True when a full Newton
     step was taken.
     """
+    F = np.flatnonzero((alpha > 0) & (alpha < C))
     while True:
-        F = np.flatnonzero((alpha > 0) & (alpha < C))
         n = len(F)
         if n == 0:
             return False
@@ -353,6 +353,7 @@ def face_steps(X: np.ndarray, y: np.ndarray, C: np.ndarray, alpha: np.ndarray, G
         G[F] += yF * (V @ (V.T @ delta))
         if full:
             return True
+        F = F[(new > 0) & (new < C[F])]  # the rows that stayed free
 
 
 def finish(
