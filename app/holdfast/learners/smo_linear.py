@@ -106,11 +106,12 @@ def _keep(y, C, alpha, G, act, g1, g2):
 
 
 @njit(nogil=True, cache=True)
-def _smo_linear(X, y, C, QD, alpha, G, w, eps, max_iter, act, shrink_every):
+def _smo_linear(X, y, C, QD, alpha, G, w, eps, max_iter, act, shrink_every, fresh_at_cap):
     """SMO over ``act`` first with shrinking, then over every row until all meet the stopping rule.
 
     On entry G must be right for every row and ``w`` must match alpha; on return both are recomputed
-    afresh (``_refresh``). Returns (pair updates, full checks).
+    afresh (``_refresh``), except when ``max_iter`` stopped the run and ``fresh_at_cap`` is False: G is
+    then right on the active rows only (the free rows among them). Returns (pair updates, full checks).
     """
     n = X.shape[0]
     p = X.shape[1]
@@ -120,8 +121,9 @@ def _smo_linear(X, y, C, QD, alpha, G, w, eps, max_iter, act, shrink_every):
     since = 0
     while True:
         if it >= max_iter:
-            _refresh(X, y, alpha, w, G)
-            checks += 1
+            if fresh_at_cap:
+                _refresh(X, y, alpha, w, G)
+                checks += 1
             break
         if since >= shrink_every:
             since = 0
@@ -250,7 +252,9 @@ def solve(
 ) -> tuple[int, int]:
     """SMO on every row of ``X`` from a feasible ``alpha`` (``y`` +1/-1 float, ``C`` per-row box, 0 takes a
     row out); ``alpha`` and ``G`` in place, G recomputed afresh at the end. ``active``: rows to work on
-    first (all rows meet the stopping rule at the end either way). Returns (pair updates, full checks)."""
+    first (all rows meet the stopping rule at the end either way). A run stopped by a given ``max_iter``
+    leaves G right on the free rows only (the next call recomputes it); the default cap (libsvm's) leaves
+    it right everywhere. Returns (pair updates, full checks)."""
     X = np.ascontiguousarray(X, dtype=np.float64)
     if QD is None:
         QD = np.einsum("ij,ij->i", X, X)
@@ -269,11 +273,16 @@ def solve(
         float(eps),
         max_iterations(n) if max_iter is None else int(max_iter),
         act,
-        min(n, 1000),
+        min(n, SHRINK_EVERY),
+        max_iter is None,
     )
     return int(its), int(checks)
 
 
+#: Pair updates between shrinking passes (libsvm: 1,000; a step here costs O(p) per active row, not O(1),
+#: so shrinking pays sooner; measured: 100 instead of 1,000 with NEAR_BAND 0.02 instead of 0.05, 15-20%
+#: less time per refit at 20,000 and 100,000 rows, loaded machine).
+SHRINK_EVERY = 100
 #: Rounds of face steps, each followed by a short SMO run, before a plain SMO run finishes a solve.
 FACE_ROUNDS = 30
 #: The violation SMO reaches before the first face steps (measured at 5,000 rows: 1e-1 and 1e-2 cost the
@@ -281,8 +290,8 @@ FACE_ROUNDS = 30
 LOOSE = 1e-1
 #: Rows with |y f(x) - 1| below this under the full model start in a refit's active set (with the free
 #: rows and the rows the seed changed); measured at 5,000 rows: 0.05 against y f < 1.2 (every row at C),
-#: a quarter of the time per refit.
-NEAR_BAND = 0.05
+#: a quarter of the time per refit; 0.02 a little less again at 20,000 and 100,000 rows (SHRINK_EVERY).
+NEAR_BAND = 0.02
 #: Most free rows a Newton step is solved for ((n+1)^2 system); past it SMO goes on alone.
 MAX_FACE_ROWS = 1500
 #: Pair updates of the short SMO run after face steps.
