@@ -7,12 +7,16 @@ Two parts, each case in a fresh Python process (so the peak RSS, ``getrusage``, 
    Ours = ``SVMLearner.fit`` + ``exact_loo`` (what ``holdfast scan`` does for the LOO, all cores);
    naive = scikit-learn's ``cross_val_predict(SVC(same frozen settings), cv=LeaveOneOut(), n_jobs=-1)``,
    timed in full. The script asserts that both give the same LOO prediction for every row, and that the
-   flip counts of ``--flip-sample`` support rows equal those of independent full SVC refits.
+   flip counts of ``--flip-sample`` support rows equal those of independent full SVC refits. The whole
+   ``holdfast scan`` command is also timed on the same data (a fresh process: start-up, reading Parquet,
+   fit, LOO, findings and outputs; cache off), and its ratio to the naive LOO printed below the table.
 2. The scaling table (``--sizes``): for each m, the same data kind plus an imbalanced set
    (``weights=[0.97]``) and an overlapping set (``class_sep=0.5``) at ``--side-size`` rows. Printed: the
    support rows d, the fit, the LOO, ms per refit, how many refits fell back to a cold libsvm solve,
    the time of one full SVC fit on the same data (ratio = fit+LOO over it) and naive LOO *estimated*
    from ``--naive-sample`` timed SVC refits (times m; marked ``est``), and the peak memory.
+   ``--linear-sizes`` adds linear-kernel cases (20 features, 10 informative; ``--linear-naive-sample``
+   timed refits for the naive estimate, since one SVC fit there takes minutes).
 
 Run: ``PYTHONPATH=app python tests/bench/bench_solver_scale.py [--sizes 2000,5000,10000] [--quick]``.
 Exits 1 if the LOO predictions differ from LeaveOneOut (exactness is the point), else 0 whatever the times.
@@ -33,18 +37,50 @@ import numpy as np
 
 
 def _data(m: int, kind: str) -> tuple[np.ndarray, np.ndarray]:
+    """The benchmark's data: RBF cases 10 features (6 informative), linear cases 20 (10 informative)."""
     from sklearn.datasets import make_classification
     from sklearn.preprocessing import StandardScaler
 
     extra: dict[str, Any] = {}
-    if kind == "imbalanced":
+    if kind.startswith("imbalanced"):
         extra["weights"] = [0.97]
-    elif kind == "overlapping":
+    elif kind.startswith("overlapping"):
         extra["class_sep"] = 0.5
+    p, informative = (20, 10) if kind.endswith("linear") else (10, 6)
     X, y = make_classification(
-        n_samples=m, n_features=10, n_informative=6, flip_y=0.05, random_state=0, **extra
+        n_samples=m, n_features=p, n_informative=informative, flip_y=0.05, random_state=0, **extra
     )
     return StandardScaler().fit_transform(X), y.astype(np.int64)
+
+
+def _kernel(kind: str) -> str:
+    return "linear" if kind.endswith("linear") else "rbf"
+
+
+def _whole_scan(X: np.ndarray, y: np.ndarray, kernel: str) -> float:
+    """Seconds of the whole ``holdfast scan`` command (a fresh process: start-up, reading the Parquet file,
+    fit, exact LOO, findings, writing the outputs; cache off, all cores) on the same data and settings."""
+    import tempfile
+    from pathlib import Path
+
+    import pandas as pd
+
+    with tempfile.TemporaryDirectory() as tmp:
+        frame = pd.DataFrame(X, columns=[f"f{k}" for k in range(X.shape[1])])
+        frame["label"] = y
+        frame.to_parquet(Path(tmp) / "data.parquet")
+        (Path(tmp) / "spec.toml").write_text(
+            '[data]\nlabel = "label"\n\n[prepare]\nscale = "none"\n\n'
+            f'[learner]\nfamily = "svm"\nkernel = "{kernel}"\nC = 1.0\ngamma = "scale"\n\n[run]\njobs = -1\n'
+        )
+        cmd = [sys.executable, "-m", "holdfast.cli", "scan", "data.parquet", "--spec", "spec.toml"]
+        cmd += ["--out", "out", "--no-cache"]
+        t0 = time.perf_counter()
+        proc = subprocess.run(cmd, cwd=tmp, capture_output=True, text=True, check=False)
+        took = time.perf_counter() - t0
+        if proc.returncode != 0:
+            raise SystemExit(f"holdfast scan failed: {proc.stderr[-2000:]}")
+    return took
 
 
 def _svc(learner: Any) -> Any:
@@ -76,7 +112,7 @@ def run_case(m: int, kind: str, naive_full: bool, naive_sample: int, flip_sample
 
     refit_mod.SVMRefitProblem._fit_without = counted  # type: ignore[method-assign]
     t0 = time.perf_counter()
-    learner = SVMLearner(kernel="rbf", C=1.0, gamma="scale")
+    learner = SVMLearner(kernel=_kernel(kind), C=1.0, gamma="scale")
     model = learner.fit(X, y)
     t_fit = time.perf_counter() - t0
     t0 = time.perf_counter()
@@ -99,6 +135,8 @@ def run_case(m: int, kind: str, naive_full: bool, naive_sample: int, flip_sample
     out["svc_sv"] = len(full.support_)
     if naive_full:
         from sklearn.model_selection import LeaveOneOut, cross_val_predict
+
+        out["scan"] = _whole_scan(X, y, _kernel(kind))
 
         t0 = time.perf_counter()
         naive = cross_val_predict(_svc(learner), X, y, cv=LeaveOneOut(), n_jobs=-1)
@@ -167,6 +205,8 @@ def main() -> None:
     parser.add_argument("--naive-rows", type=int, default=2000, help="rows of the fully timed naive case")
     parser.add_argument("--naive-sample", type=int, default=30)
     parser.add_argument("--flip-sample", type=int, default=40)
+    parser.add_argument("--linear-sizes", default="", help="sizes of linear-kernel cases (20 features)")
+    parser.add_argument("--linear-naive-sample", type=int, default=3, help="timed SVC refits per linear case")
     parser.add_argument("--quick", action="store_true", help="small sizes, for a smoke run")
     parser.add_argument("--naive-only", action="store_true", help="only the fully timed naive case")
     parser.add_argument("--scale-only", action="store_true", help="skip the fully timed naive case")
@@ -182,16 +222,26 @@ def main() -> None:
         cases += [(int(s), "base", "0", str(args.naive_sample), "0") for s in args.sizes.split(",") if s]
         side = ("imbalanced", "overlapping")
         cases += [(args.side_size, k, "0", str(args.naive_sample), "0") for k in side]
+        sample = str(args.linear_naive_sample)
+        cases += [(int(s), "base-linear", "0", sample, "0") for s in args.linear_sizes.split(",") if s]
     print(
         "| data | m | d | fit s | LOO s | ms/refit | cold | SVC fit s | x fit | naive s | x naive | "
         "LOO mismatches | flip mismatches | peak MB |"
     )
     print("|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|")
     failed = False
+    rows = []
     for m, kind, full, sample, flips in cases:
         r = _in_subprocess([str(m), kind, full, sample, flips])
+        rows.append(r)
         print(_row(r), flush=True)
         failed |= r["mismatches"] > 0 or r.get("flip_mismatches", 0) > 0
+    for r in rows:
+        if "scan" in r:
+            print(
+                f"whole `holdfast scan` at {r['m']:,} rows (fresh process, cache off): {r['scan']:.1f} s; "
+                f"naive LeaveOneOut {r['naive']:.1f} s: {r['naive'] / r['scan']:.1f}x"
+            )
     print(f"load average {os.getloadavg()[0]:.1f}; 'est' = naive LOO estimated from a timed sample of refits")
     if failed:
         print("LOO predictions or flip counts differ from scikit-learn's full refits")

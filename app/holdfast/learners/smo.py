@@ -204,6 +204,9 @@ def _smo(
     KW,
     wpos,
     wall,
+    dacc,
+    touched,
+    defer,
 ):
     """SMO with second-order working-set selection until m(a) - M(a) < eps; alpha and G in place.
 
@@ -211,12 +214,15 @@ def _smo(
     learning practical"; libsvm's variant in Chang & Lin 2011, section 5.1): the gradient of the others is
     brought up to date from the accumulated alpha changes once the active rows are optimal, and SMO goes
     on over all rows until every row meets the stopping rule, so the result does not depend on ``act``.
-    Returns the number of iterations (pair updates) done.
+    ``dacc``/``touched`` carry the accumulated changes (``dacc_s`` = change of y_s a_s) between calls; with
+    ``defer`` the run stops when the active rows are optimal and leaves the other rows' gradient to a
+    later call without ``defer`` (which brings it up to date once). Returns the number of pair updates.
     """
     n = idx.shape[0]
     shrunk = act.shape[0] < n
-    dacc = np.zeros(n if shrunk else 1)
-    touched = np.zeros(n if shrunk else 1, dtype=np.bool_)
+    if shrunk and dacc.shape[0] != n:
+        dacc = np.zeros(n)
+        touched = np.zeros(n, dtype=np.bool_)
     if ident:
         ncache = 1
     cache = np.empty((max(ncache, 2), n if not ident else 1))
@@ -237,7 +243,7 @@ def _smo(
                 gmax = G[t]
                 i = t
         if i == -1:
-            if shrunk:
+            if shrunk and not defer:
                 _unshrink(
                     K,
                     X,
@@ -293,7 +299,7 @@ def _smo(
                     j = t
                     obj_min = od
         if gmax + gmax2 < eps or j == -1:
-            if shrunk:
+            if shrunk and not defer:
                 _unshrink(
                     K,
                     X,
@@ -380,7 +386,7 @@ def _smo(
             dacc[j] += daj
             touched[i] = True
             touched[j] = True
-    if shrunk:  # stopped by max_iter: the caller still gets a gradient that is right everywhere
+    if shrunk and not defer:  # stopped by max_iter: the caller still gets a gradient that is right everywhere
         _unshrink(
             K,
             X,
@@ -559,6 +565,8 @@ def solve(
     QD: np.ndarray | None = None,
     max_iter: int | None = None,
     active: np.ndarray | None = None,
+    acc: tuple[np.ndarray, np.ndarray] | None = None,
+    defer: bool = False,
 ) -> int:
     """Run SMO on the rows ``idx`` (positions 0..n-1) from a feasible ``alpha`` with ``G = Qa - e``.
 
@@ -593,6 +601,9 @@ def solve(
             kernel.KW,
             kernel.wpos,
             _is_all_rows(kernel, idx),
+            acc[0] if acc is not None else np.zeros(1),
+            acc[1] if acc is not None else np.zeros(1, dtype=np.bool_),
+            bool(defer and acc is not None),
         )
     )
 
