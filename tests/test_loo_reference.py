@@ -302,3 +302,21 @@ def test_exact_loo_matches_leave_one_out_on_random_data(problem):
     assert int((result.loo_code != y).sum()) <= int(model.support.sum())
     sv = np.flatnonzero(model.support)
     assert np.array_equal(result.flip_count[sv], _reference_flips(X, y, learner, model.prediction, sv))
+
+
+@pytest.mark.parametrize("limit", [12_000, 10])
+def test_fallback_decision_values_are_libsvms(cancer_subsample, limit):
+    """A refit that falls back to libsvm sums its decision values from our kernel rows and asks libsvm
+    (scikit-learn's ``SVC.decision_function``; Chang & Lin 2011, "LIBSVM", ACM TIST 2(3)) only near 0:
+    the values equal libsvm's own to rounding, and the predictions are libsvm's."""
+    X, y = cancer_subsample
+    learner = SVMLearner(kernel="rbf", C=1.0, precompute_max_rows=limit)
+    model = learner.fit(X, y)
+    problem = learner.refit_problem()
+    row = int(np.flatnonzero(model.support)[3])
+    pred, dec = problem._fit_without(row)
+    keep = np.delete(np.arange(len(y)), row)
+    ref = _reference_svc(learner).fit(X[keep], y[keep])
+    assert dec is not None
+    assert np.allclose(dec, ref.decision_function(X), rtol=0, atol=1e-9)
+    assert np.array_equal(pred, ref.predict(X))

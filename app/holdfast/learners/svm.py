@@ -10,10 +10,13 @@ To keep that shortcut exact, everything except the learner is frozen: ``gamma="s
 every refit. The kernel matrix is computed once (``kernel="precomputed"``) when it fits in memory
 (``PRECOMPUTE_MAX_ROWS``). Then the full fit is our own solver (:mod:`holdfast.learners.smo`; one-vs-one
 machines for more classes, :mod:`holdfast.learners.pairs`) and every refit starts warm from its solution
-(:mod:`holdfast.learners.svm_refit`). Above the limit, scikit-learn's SVC fits the model and two-class
-refits solve on a working set with the kernel rows of the first working set against all rows
-(``WORKING_ROWS_MAX_BYTES``); beyond that budget (or with more than two classes) each refit is a full
-libsvm fit: exact, but slow. ``solver="libsvm"`` gives the SVC engine below the limit too.
+(:mod:`holdfast.learners.svm_refit`). Above the limit, two classes: libsvm's cold fit (scikit-learn's SVC,
+with its shrinking and kernel cache) is the start, our solver takes it to the same tolerance as below the
+limit, and every refit starts warm from that solution; the kernel rows of the support rows and rows near
+the margin are stored against all rows (closest to the margin first, up to ``WORKING_ROWS_MAX_BYTES``),
+the others computed from X when needed. More than two classes above the limit: SVC fits, and each refit is
+a libsvm fit (exact, but slow). ``solver="libsvm"`` gives the SVC engine (two-class refits on a working
+set) everywhere.
 """
 
 from __future__ import annotations
