@@ -27,7 +27,7 @@ import numpy as np
 from sklearn.svm import SVC
 
 from holdfast.errors import SpecError
-from holdfast.learners import smo, warm
+from holdfast.learners import smo, smo_linear, warm
 from holdfast.learners.base import FittedModel, signed_margins
 from holdfast.learners.face import FaceInverse
 from holdfast.learners.kernels import kernel_matrix, resolve_gamma, row_margin, submatrix
@@ -332,18 +332,22 @@ class SVMLearner:
         warm start of every refit."""
         m = len(y)
         ypm = np.where(y == 1, 1.0, -1.0)
+        linear = smo_linear.is_linear(kernel)
         if seed is None:
             alpha, grad, rho, _ = smo.fit_dual(kernel, np.arange(m), ypm, row_c.astype(np.float64), WARM_TOL)
         else:
             alpha = np.zeros(m)
             alpha[seed.support_] = np.abs(seed.dual_coef_[0])
-            alpha, grad, rho = warm.tighten(kernel, ypm, row_c.astype(np.float64), alpha, WARM_TOL)
+            if linear:  # SMO from the primal vector with face steps (no kernel rows at all)
+                alpha, grad, rho = smo_linear.fit_dual(kernel, ypm, row_c.astype(np.float64), WARM_TOL, alpha)
+            else:
+                alpha, grad, rho = warm.tighten(kernel, ypm, row_c.astype(np.float64), alpha, WARM_TOL)
         problem.solver = kernel
         problem.alpha, problem.grad, problem.c_row = alpha, grad, row_c.astype(np.float64)
         problem.qd = kernel.diag(np.arange(m))
-        problem.face = FaceInverse.build(kernel, np.arange(m), ypm, alpha, problem.c_row)
+        problem.face = None if linear else FaceInverse.build(kernel, np.arange(m), ypm, alpha, problem.c_row)
         dec = ypm * (grad + 1.0) - rho
-        problem.near = ypm * dec < 1.0 + WORKING_SET_SLACK
+        problem.near = smo_linear.near_rows(ypm, dec) if linear else ypm * dec < 1.0 + WORKING_SET_SLACK
         return DualModel.from_dual(alpha, ypm, rho, dec, self._args())
 
     def _fit_own_pairs(

@@ -24,7 +24,7 @@ from typing import Any
 import numpy as np
 from sklearn.svm import SVC
 
-from holdfast.learners import smo, warm
+from holdfast.learners import smo, smo_linear, warm
 from holdfast.learners.base import RefitOutcome, refit_outcome
 from holdfast.learners.face import FaceInverse
 from holdfast.learners.kernels import kernel_matrix, submatrix
@@ -293,9 +293,13 @@ class SVMRefitProblem:
         ypm = np.where(self.y == 1, 1.0, -1.0)
         alpha, grad, c = self.alpha.copy(), self.grad.copy(), self.c_row.copy()
         idx = np.arange(m)
-        rho, _ = warm.refit_without(
-            self.solver, idx, ypm, c, alpha, grad, row, self.eps, True, self.qd, self.near, self.face
-        )
+        if smo_linear.is_linear(self.solver):  # linear kernel from X: SMO from the primal vector
+            args = (self.eps, self.qd, self.near)
+            rho, _ = smo_linear.refit_without(self.solver, ypm, c, alpha, grad, row, *args)
+        else:
+            rho, _ = warm.refit_without(
+                self.solver, idx, ypm, c, alpha, grad, row, self.eps, True, self.qd, self.near, self.face
+            )
         dec = ypm * (grad + 1.0) - rho
         if not self._intercept_is_unique(dec, -rho, row) or self._near_zero(dec, alpha):
             return self._fit_without(row)
