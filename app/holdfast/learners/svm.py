@@ -212,7 +212,11 @@ class SVMLearner:
         own: DualModel | PairModel | None = None
         kernel: smo.Kernel | None = None
         seed_svc: SVC | None = None
-        if self.solver == "own" and K is not None:
+        if self.solver == "own" and K is not None and self.kernel == "linear" and n_classes == 2:
+            # linear: SMO from the primal vector (learners.smo_linear) beats kernel rows at every size
+            seed_svc = SVC(kernel="linear", **svc_params).fit(X, y)
+            kernel = smo.Kernel(X=X, kind="linear", cache_rows=LINEAR_CACHE_ROWS)
+        elif self.solver == "own" and K is not None:
             kernel = smo.Kernel(K=K)
         elif self.solver == "own" and n_classes == 2:
             # above the limit: libsvm's cold fit (shrinking, its own kernel cache) is the start, our solver
