@@ -182,6 +182,56 @@ def _unshrink(
         touched[s] = False
 
 
+@njit(nogil=True, cache=True, inline="always")
+def pair_step(i, j, y, C, alpha, G, qc):
+    """libsvm's update of the pair (i, j) with curvature ``qc`` and its clipping to the box (Chang & Lin
+    2011, "LIBSVM", section 4.1.2; Platt 1998); y'a stays unchanged. Returns the changes of y_i a_i and
+    y_j a_j."""
+    ci = C[i]
+    cj = C[j]
+    oai = alpha[i]
+    oaj = alpha[j]
+    if y[i] != y[j]:
+        delta = (-G[i] - G[j]) / qc
+        diff = alpha[i] - alpha[j]
+        alpha[i] += delta
+        alpha[j] += delta
+        if diff > 0:
+            if alpha[j] < 0:
+                alpha[j] = 0.0
+                alpha[i] = diff
+        elif alpha[i] < 0:
+            alpha[i] = 0.0
+            alpha[j] = -diff
+        if diff > ci - cj:
+            if alpha[i] > ci:
+                alpha[i] = ci
+                alpha[j] = ci - diff
+        elif alpha[j] > cj:
+            alpha[j] = cj
+            alpha[i] = cj + diff
+    else:
+        delta = (G[i] - G[j]) / qc
+        total = alpha[i] + alpha[j]
+        alpha[i] -= delta
+        alpha[j] += delta
+        if total > ci:
+            if alpha[i] > ci:
+                alpha[i] = ci
+                alpha[j] = total - ci
+        elif alpha[j] < 0:
+            alpha[j] = 0.0
+            alpha[i] = total
+        if total > cj:
+            if alpha[j] > cj:
+                alpha[j] = cj
+                alpha[i] = total - cj
+        elif alpha[i] < 0:
+            alpha[i] = 0.0
+            alpha[j] = total
+    return (alpha[i] - oai) * y[i], (alpha[j] - oaj) * y[j]
+
+
 @njit(nogil=True, cache=True)
 def _grown(act, y, C, alpha, G, eps):
     """After the rows outside ``act`` got their gradient: ``act`` plus every outside row that could form a
@@ -381,53 +431,10 @@ def _smo(
         )
         if not ident and slot_of[i] >= 0:  # the fetch of j may have reused a slot; i's row is kept
             Ki = cache[slot_of[i]]
-        ci = C[i]
-        cj = C[j]
-        oai = alpha[i]
-        oaj = alpha[j]
         qc = QD[i] + QD[j] - 2.0 * Ki[j]
         if qc <= 0:
             qc = TAU
-        if y[i] != y[j]:
-            delta = (-G[i] - G[j]) / qc
-            diff = alpha[i] - alpha[j]
-            alpha[i] += delta
-            alpha[j] += delta
-            if diff > 0:
-                if alpha[j] < 0:
-                    alpha[j] = 0.0
-                    alpha[i] = diff
-            elif alpha[i] < 0:
-                alpha[i] = 0.0
-                alpha[j] = -diff
-            if diff > ci - cj:
-                if alpha[i] > ci:
-                    alpha[i] = ci
-                    alpha[j] = ci - diff
-            elif alpha[j] > cj:
-                alpha[j] = cj
-                alpha[i] = cj + diff
-        else:
-            delta = (G[i] - G[j]) / qc
-            total = alpha[i] + alpha[j]
-            alpha[i] -= delta
-            alpha[j] += delta
-            if total > ci:
-                if alpha[i] > ci:
-                    alpha[i] = ci
-                    alpha[j] = total - ci
-            elif alpha[j] < 0:
-                alpha[j] = 0.0
-                alpha[i] = total
-            if total > cj:
-                if alpha[j] > cj:
-                    alpha[j] = cj
-                    alpha[i] = total - cj
-            elif alpha[i] < 0:
-                alpha[i] = 0.0
-                alpha[j] = total
-        dai = (alpha[i] - oai) * y[i]
-        daj = (alpha[j] - oaj) * y[j]
+        dai, daj = pair_step(i, j, y, C, alpha, G, qc)
         for t in act:
             G[t] += y[t] * (Ki[t] * dai + Kj[t] * daj)
         if shrunk:

@@ -29,7 +29,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-from holdfast.learners.smo import TAU, Kernel, max_iterations, rho
+from holdfast.learners.smo import TAU, Kernel, max_iterations, pair_step, rho
 from holdfast.learners.warm import seed_without
 
 
@@ -179,53 +179,10 @@ def _smo_linear(X, y, C, QD, alpha, G, w, eps, max_iter, act, shrink_every, fres
             continue
         it += 1
         since += 1
-        ci = C[i]
-        cj = C[j]
-        oai = alpha[i]
-        oaj = alpha[j]
         qc = QD[i] + QD[j] - 2.0 * _rows_dot(X, i, j)
         if qc <= 0:
             qc = TAU
-        if y[i] != y[j]:
-            delta = (-G[i] - G[j]) / qc
-            diff = alpha[i] - alpha[j]
-            alpha[i] += delta
-            alpha[j] += delta
-            if diff > 0:
-                if alpha[j] < 0:
-                    alpha[j] = 0.0
-                    alpha[i] = diff
-            elif alpha[i] < 0:
-                alpha[i] = 0.0
-                alpha[j] = -diff
-            if diff > ci - cj:
-                if alpha[i] > ci:
-                    alpha[i] = ci
-                    alpha[j] = ci - diff
-            elif alpha[j] > cj:
-                alpha[j] = cj
-                alpha[i] = cj + diff
-        else:
-            delta = (G[i] - G[j]) / qc
-            total = alpha[i] + alpha[j]
-            alpha[i] -= delta
-            alpha[j] += delta
-            if total > ci:
-                if alpha[i] > ci:
-                    alpha[i] = ci
-                    alpha[j] = total - ci
-            elif alpha[j] < 0:
-                alpha[j] = 0.0
-                alpha[i] = total
-            if total > cj:
-                if alpha[j] > cj:
-                    alpha[j] = cj
-                    alpha[i] = total - cj
-            elif alpha[i] < 0:
-                alpha[i] = 0.0
-                alpha[j] = total
-        dai = (alpha[i] - oai) * y[i]
-        daj = (alpha[j] - oaj) * y[j]
+        dai, daj = pair_step(i, j, y, C, alpha, G, qc)
         for f in range(p):
             dw[f] = dai * X[i, f] + daj * X[j, f]
             w[f] += dw[f]
