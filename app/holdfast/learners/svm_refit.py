@@ -1,7 +1,8 @@
 """Refits of the SVM without one training row: the problem each exact-LOO refit solves.
 
-Two classes with the kernel matrix in memory: a warm start from the full solution with our own solver
-(:mod:`holdfast.learners.smo`; alpha seeding, DeCoste & Wagstaff 2000, "Alpha seeding for support vector
+Two classes: a warm start from the full solution with our own solver (:mod:`holdfast.learners.smo`, with
+the kernel matrix, stored kernel rows or rows computed from X; :mod:`holdfast.learners.smo_linear` for
+the linear kernel; alpha seeding, DeCoste & Wagstaff 2000, "Alpha seeding for support vector
 machines", KDD). The refit is solved to ``WARM_TOL`` (tighter than libsvm's default) so that it is the
 optimum of the problem without the row to rounding error, not just one of the many points within the
 stopping tolerance: the reference (a cold libsvm solve per row) then differs from it only by libsvm's own
@@ -11,9 +12,9 @@ Safeguard kept from the libsvm working-set path: when the refit's objective is f
 (several optimal models; libsvm takes the middle of the optimal interval from its own final state), the
 whole problem is handed to libsvm cold, so the choice is the reference's (``_intercept_is_unique``).
 
-Above the precompute limit (and for more than two classes without pairwise states) the libsvm working-set
-solve of earlier versions is used: a solve on the support rows and rows near the margin, then a KKT check
-of every other row (Osuna, Freund & Girosi 1997).
+With the "libsvm" engine (and for more than two classes above the precompute limit) the libsvm
+working-set solve of earlier versions is used: a solve on the support rows and rows near the margin, then
+a KKT check of every other row (Osuna, Freund & Girosi 1997).
 """
 
 from __future__ import annotations
