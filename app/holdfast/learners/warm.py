@@ -210,23 +210,12 @@ def finish(
     With ``near``, everything before the last run works on the active rows A (``near`` plus the free rows)
     and keeps only their gradient up to date, accumulating each row's change of y a; the last run brings
     the other rows' gradient up to date once (O(changed rows x n), instead of once per step) and goes on
-    over all rows until every row meets the stopping rule (see ``smo._smo``)."""
-    if near is None:
-        its = solve(kernel, idx, y, C, alpha, G, max(eps, LOOSE_EPS), QD)
-        short = 50 + len(idx) // 20
-        for _ in range(POLISH_ROUNDS):
-            for _ in range(8):
-                if polish(kernel, idx, y, C, alpha, G, all_rows, face):
-                    break
-            more = solve(kernel, idx, y, C, alpha, G, eps, QD, max_iter=short)
-            its += more
-            if more < short:
-                return its
-        return its + solve(kernel, idx, y, C, alpha, G, eps, QD)
-    active = np.flatnonzero(near | ((alpha > 0) & (alpha < C)))
-    acc = (np.zeros(len(idx)), np.zeros(len(idx), dtype=np.bool_))
+    over all rows until every row meets the stopping rule (see ``smo._smo``). Without ``near`` every row is
+    active throughout."""
+    active = None if near is None else np.flatnonzero(near | ((alpha > 0) & (alpha < C)))
+    acc = None if active is None else (np.zeros(len(idx)), np.zeros(len(idx), dtype=np.bool_))
     its = solve(kernel, idx, y, C, alpha, G, max(eps, LOOSE_EPS), QD, active=active, acc=acc, defer=True)
-    short = 50 + len(active) // 20
+    short = 50 + (len(idx) if active is None else len(active)) // 20
     for _ in range(POLISH_ROUNDS):
         for _ in range(8):
             if polish(kernel, idx, y, C, alpha, G, all_rows, face, active, acc):
