@@ -24,7 +24,7 @@ RUN_KEYS = ("jobs", "backend", "scheduler", "cache")
 INSIGHT_KEYS = ("k", "delta")
 #: Learner keys by family; a family's learner module validates the values.
 LEARNER_KEYS: dict[str, tuple[str, ...]] = {
-    "svm": ("family", "kernel", "C", "gamma", "degree", "coef0", "class_weight", "tol"),
+    "svm": ("family", "kernel", "C", "gamma", "degree", "coef0", "class_weight", "tol", "ties"),
     "knn": ("family", "k", "weights", "metric"),
     "perceptron": ("family", "epochs", "intercept"),
     "logistic": ("family", "C", "tol"),

@@ -274,7 +274,7 @@ def build_findings(
         "loo_errors": int(((loo.loo_code != y) & ~_pending(pending, m)).sum()),
         "loo_exact": bool(model.loo_exact),
         "loo_exact_rows": int(rows["loo_exact"].to_numpy(dtype=bool)[tr_mask].sum()),
-        "family": family_summary(model, m),
+        "family": family_summary(model, m, loo),
         "solver_tol": model.params.get("tol"),
         "flags": {name: int(rows[f"flag_{name}"].sum()) for name in FLAG_REASONS},
         "bounds": bounds,

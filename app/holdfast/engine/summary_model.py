@@ -230,7 +230,23 @@ ALPHA_MEANING = {
 }
 
 
-def family_summary(model: FittedModel, m: int) -> dict[str, Any]:
+def ties_summary(model: FittedModel, loo: LooResult | None) -> dict[str, Any]:
+    """SVM: how decision values near 0 got their sign (``learner.ties``), the allowance, and how many
+    training decision values (full model) and LOO decision values of refitted rows lie within it. Under
+    "optimum" those signs are the exact optimum's, which a solver stopping at ``tol`` (libsvm, so
+    scikit-learn's LeaveOneOut) may give the other way."""
+    allowance = float(model.extras["tie_allowance"])
+    out: dict[str, Any] = {"rule": model.extras["ties"], "allowance": allowance}
+    decision = np.asarray(model.extras["decision"])
+    if decision.ndim == 1:
+        out["training_within"] = int(np.sum(np.abs(decision) < allowance))
+        if loo is not None and loo.loo_margin is not None:
+            refitted = model.loo_candidates()
+            out["loo_within"] = int(np.sum(np.abs(loo.loo_margin[refitted]) < allowance))
+    return out
+
+
+def family_summary(model: FittedModel, m: int, loo: LooResult | None = None) -> dict[str, Any]:
     """The ``family`` object of the summary: what "support rows" means for the family in use, which
     family-specific columns apply, how the LOO was computed, and the family's own facts."""
     meaning = SUPPORT_MEANING.get(model.family, {"name": "support rows", "meaning": ""})
@@ -261,4 +277,6 @@ def family_summary(model: FittedModel, m: int) -> dict[str, Any]:
         )
     else:
         out["loo"] = "exact: refits of the support rows; other rows keep their training prediction"
+        if "ties" in model.extras:
+            out["ties"] = ties_summary(model, loo)
     return out

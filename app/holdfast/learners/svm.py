@@ -14,9 +14,11 @@ machines for more classes, :mod:`holdfast.learners.pairs`) and every refit start
 with its shrinking and kernel cache) is the start, our solver takes it to the same tolerance as below the
 limit, and every refit starts warm from that solution; the kernel rows of the support rows and rows near
 the margin are stored against all rows (closest to the margin first, up to ``WORKING_ROWS_MAX_BYTES``),
-the others computed from X when needed. More than two classes above the limit: SVC fits, and each refit is
-a libsvm fit (exact, but slow). ``solver="libsvm"`` gives the SVC engine (two-class refits on a working
-set) everywhere.
+the others computed from X when needed. The linear kernel with two classes uses its own solver from the
+primal vector at every size (:mod:`holdfast.learners.smo_linear`); above the limit its full fit is ours
+too (libsvm's took over 45 minutes at 100,000 rows). More than two classes above the limit: SVC fits,
+and each refit is a libsvm fit (exact, but slow). ``solver="libsvm"`` gives the SVC engine (two-class
+refits on a working set) everywhere.
 """
 
 from __future__ import annotations
@@ -53,7 +55,18 @@ DEFAULTS: dict[str, Any] = {
     "coef0": 0.0,
     "class_weight": "none",
     "tol": 1e-6,
+    "ties": "auto",
 }
+#: How a decision value within the tie allowance of 0 gets its sign (``svm_refit.tie_tolerance``):
+#: "libsvm" solves that refit again with libsvm, cold, so that the sign is the one scikit-learn's SVC (and
+#: so its LeaveOneOut) gives; "optimum" keeps the sign of our refit, solved to ``WARM_TOL``: the sign at the
+#: optimum of the problem without the row, which a solver stopping at ``tol`` may miss; "auto" is "libsvm"
+#: up to ``TIES_LIBSVM_MAX_ROWS`` training rows and "optimum" above.
+TIES = ("auto", "libsvm", "optimum")
+#: Above this many training rows a cold libsvm solve per near-tie costs more than the rest of the scan (at
+#: 10,000 RBF rows: 68 of 3,036 refits, a third of the LOO time; linear kernel at 20,000 rows: every refit,
+#: hours), so "auto" keeps the optimum's sign there.
+TIES_LIBSVM_MAX_ROWS = 5_000
 #: Largest training set for which the kernel matrix is precomputed (m*m float64: 1.2 GB at 12,000).
 PRECOMPUTE_MAX_ROWS = 12_000
 #: Above that, two-class refits keep the working set fast with the kernel rows of the initial working set
@@ -138,11 +151,14 @@ def validate_svm_params(table: dict[str, Any], source: str) -> dict[str, Any]:
     if isinstance(t, bool) or not isinstance(t, int | float) or not 0 < t < 1:
         raise SpecError(f"{source}: 'learner.tol' must be a number in (0, 1), got {t!r}")
     out["tol"] = float(t)
+    if out["ties"] not in TIES:
+        raise SpecError(f"{source}: 'learner.ties' must be one of {' | '.join(TIES)}, got {out['ties']!r}")
     return out
 
 
 class SVMLearner:
-    """Soft-margin SVM; parameters as in the spec (kernel, C, gamma, degree, coef0, class_weight, tol)."""
+    """Soft-margin SVM; parameters as in the spec (kernel, C, gamma, degree, coef0, class_weight, tol,
+    ties)."""
 
     family = "svm"
 
@@ -155,6 +171,7 @@ class SVMLearner:
         coef0: float = 0.0,
         class_weight: str = "none",
         tol: float = 1e-6,
+        ties: str = "auto",
         precompute_max_rows: int = PRECOMPUTE_MAX_ROWS,
         working_set: bool = True,
         solver: str = "own",
@@ -166,6 +183,7 @@ class SVMLearner:
         self.coef0 = coef0
         self.class_weight = class_weight
         self.tol = tol
+        self.ties = ties
         self.precompute_max_rows = precompute_max_rows
         self.working_set = working_set
         #: "own": two-class fits and refits with our solver (holdfast.learners.smo) when the kernel matrix
@@ -186,6 +204,8 @@ class SVMLearner:
             weights = {c: float(m / (n_classes * counts[c])) for c in range(n_classes) if counts[c] > 0}
         self.gamma_ = gamma
         self.class_weight_ = weights
+        auto = "libsvm" if m <= TIES_LIBSVM_MAX_ROWS else "optimum"
+        self.ties_ = auto if self.ties == "auto" else self.ties
         self.X_train_ = X
         svc_params: dict[str, Any] = {
             "C": self.C,
@@ -206,6 +226,7 @@ class SVMLearner:
             full_decision=np.empty(0),
             K=K,
             X=None if K is not None else X,
+            ties=self.ties_,
         )
         row_c = self.C * (np.array([weights[c] for c in y]) if weights else np.ones(m))
         clf: SVC | DualModel | PairModel
@@ -218,6 +239,10 @@ class SVMLearner:
             kernel = smo.Kernel(X=X, kind="linear", cache_rows=LINEAR_CACHE_ROWS)
         elif self.solver == "own" and K is not None:
             kernel = smo.Kernel(K=K)
+        elif self.solver == "own" and n_classes == 2 and self.kernel == "linear":
+            # linear above the limit: our own fit from the primal vector (libsvm's took over 45 minutes at
+            # 100,000 rows x 20 features), started from a solve on every tenth row (smo_linear.fit_staged)
+            kernel = smo.Kernel(X=X, kind="linear", cache_rows=LINEAR_CACHE_ROWS)
         elif self.solver == "own" and n_classes == 2:
             # above the limit: libsvm's cold fit (shrinking, its own kernel cache) is the start, our solver
             # takes it to WARM_TOL with the most used kernel rows stored, and every refit starts from it
@@ -230,7 +255,8 @@ class SVMLearner:
         elif kernel is not None and np.all(np.bincount(y, minlength=n_classes) > 0):
             own = self._fit_own_pairs(kernel, y, row_c, n_classes, problem)
         self.svc_on_X_ = False
-        if own is not None and kernel is not None and self._has_tie(own, kernel, problem):
+        checked = self.ties_ == "libsvm" and own is not None and kernel is not None
+        if checked and self._has_tie(own, kernel, problem):  # type: ignore[arg-type]
             # a training decision value within the tie tolerance of 0: the full model is the reference's
             # own computation (libsvm computing the kernel from X), so that its sign is the reference's;
             # refits still start warm from our solution (an optimum of the same problem)
@@ -282,6 +308,8 @@ class SVMLearner:
         bounded = support & np.isclose(alpha, row_c, rtol=1e-8, atol=0.0)
         margin = signed_margins(decision, y)
         extras: dict[str, Any] = {"kernel_r2": self._kernel_r2(K, X, gamma), "decision": decision}
+        extras["ties"] = self.ties_
+        extras["tie_allowance"] = tie_tolerance(self.tol, float(alpha.sum()), self._k_max(K, X))
         if K is not None:
             extras["K"] = K
         return FittedModel(
@@ -337,7 +365,9 @@ class SVMLearner:
         m = len(y)
         ypm = np.where(y == 1, 1.0, -1.0)
         linear = smo_linear.is_linear(kernel)
-        if seed is None:
+        if seed is None and linear:
+            alpha, grad, rho = smo_linear.fit_staged(kernel, ypm, row_c.astype(np.float64), WARM_TOL)
+        elif seed is None:
             alpha, grad, rho, _ = smo.fit_dual(kernel, np.arange(m), ypm, row_c.astype(np.float64), WARM_TOL)
         else:
             alpha = np.zeros(m)
@@ -382,6 +412,17 @@ class SVMLearner:
         sums = np.array([s.alpha.sum() for s in problem.pairs])
         limits = np.array([tie_tolerance(self.tol, float(a), k_max) for a in sums])
         return bool(np.any(np.min(np.abs(problem.ovo_full), axis=0) < limits))
+
+    def _k_max(self, K: np.ndarray | None, X: np.ndarray) -> float:
+        """The largest K(x, x) over the training rows."""
+        if K is not None:
+            return float(K.diagonal().max())
+        if self.kernel == "rbf":
+            return 1.0
+        sq = np.einsum("ij,ij->i", X, X)
+        if self.kernel == "linear":
+            return float(sq.max())
+        return float(np.max((self.gamma_ * sq + self.coef0) ** self.degree))
 
     def _kernel_r2(self, K: np.ndarray | None, X: np.ndarray, gamma: float) -> float:
         """R^2 = max K - min K over the training kernel values (for the xi-alpha estimate)."""
@@ -435,5 +476,7 @@ class SVMLearner:
             "class_weight": self.class_weight,
             "class_weight_resolved": getattr(self, "class_weight_", None),
             "tol": self.tol,
+            "ties": self.ties,
+            "ties_resolved": getattr(self, "ties_", None),
             "precomputed_kernel": getattr(self, "problem_", None) is not None and self.problem_.K is not None,
         }

@@ -8,6 +8,10 @@ optimum of the problem without the row to rounding error, not just one of the ma
 stopping tolerance: the reference (a cold libsvm solve per row) then differs from it only by libsvm's own
 tolerance, and a decision value can only come out with another sign when it is that close to zero.
 
+With ``ties="libsvm"`` (``holdfast.learners.svm.TIES``) a refit with a decision value within
+:func:`tie_tolerance` of 0 is solved again by libsvm, cold, so that its signs are the reference's; with
+"optimum" our refit's signs stand (the optimum's), and neither safeguard below calls libsvm.
+
 Safeguard kept from the libsvm working-set path: when the refit's objective is flat in the intercept
 (several optimal models; libsvm takes the middle of the optimal interval from its own final state), the
 whole problem is handed to libsvm cold, so the choice is the reference's (``_intercept_is_unique``).
@@ -83,6 +87,14 @@ def intercept_is_unique(ypm: np.ndarray, g: np.ndarray, c: np.ndarray, intercept
     return bool(right > flat and left < -flat)
 
 
+def _always(*_: object) -> bool:
+    return True
+
+
+def _never(*_: object) -> float:
+    return -1.0
+
+
 @dataclass
 class SVMRefitProblem:
     """Self-contained SVM training problem for refits without one row (picklable for joblib/dask)."""
@@ -120,6 +132,9 @@ class SVMRefitProblem:
     #: the training matrix, for whole-problem fallbacks computed exactly as the reference computes them
     #: (with ``kernel_args``)
     X_ref: np.ndarray | None = None
+    #: how a decision value within the tie allowance of 0 gets its sign (``holdfast.learners.svm.TIES``,
+    #: resolved): "libsvm" solves the whole refit again with libsvm; "optimum" keeps our refit's sign
+    ties: str = "libsvm"
 
     def _row_c(self, rows: np.ndarray) -> np.ndarray:
         """The box limit C (times the class weight) of each row."""
@@ -302,7 +317,9 @@ class SVMRefitProblem:
                 self.solver, idx, ypm, c, alpha, grad, row, self.eps, True, self.qd, self.near, self.face
             )
         dec = ypm * (grad + 1.0) - rho
-        if not self._intercept_is_unique(dec, -rho, row) or self._near_zero(dec, alpha):
+        if self.ties == "libsvm" and (
+            not self._intercept_is_unique(dec, -rho, row) or self._near_zero(dec, alpha)
+        ):
             return self._fit_without(row)
         return np.where(dec > 0, 1, 0).astype(np.int64), dec
 
@@ -317,7 +334,10 @@ class SVMRefitProblem:
         """More than two classes: warm refits of the machines ``row`` is a support row of, the rest reused
         (holdfast.learners.pairs); the whole problem with libsvm when an intercept is not unique."""
         assert self.solver is not None and self.pairs is not None and self.ovo_full is not None
-        ovo = refit_pairs(self.solver, self.pairs, self.ovo_full, row, self.eps, self._unique, self._tie)
+        if self.ties == "libsvm":
+            ovo = refit_pairs(self.solver, self.pairs, self.ovo_full, row, self.eps, self._unique, self._tie)
+        else:  # the optimum's signs and intercept (libsvm's rule on our solution): no libsvm solve
+            ovo = refit_pairs(self.solver, self.pairs, self.ovo_full, row, self.eps, _always, _never)
         if ovo is None:
             return self._fit_without(row)
         dec = ovr_from_ovo(ovo, self.n_classes)

@@ -60,11 +60,29 @@ def summary_text(summary: dict[str, Any]) -> str:
     flags = {k: v for k, v in (summary.get("flags") or {}).items() if v}
     if flags:
         pairs.append(("flags", ", ".join(f"{safe_text(k)} {int(v)}" for k, v in flags.items())))
+    ties = ties_line(family.get("ties"))
+    if ties:
+        pairs.append(("near-zero signs", ties))
     width = max(len(name) for name, _ in pairs) + 2
     lines = [f"{name:<{width}}{value}" for name, value in pairs]
     if family.get("name", "svm") == "svm":  # the composition of d is the SVM's (bounded / free)
         lines += explanation_lines(summary.get("explanation"))
     return "\n".join(lines)
+
+
+def ties_line(ties: Any) -> str:
+    """SVM under ``learner.ties = "optimum"``: how many decision values lie within the tie allowance of 0,
+    whose signs are the exact optimum's (a solver stopping at its tolerance may give the other sign); ""
+    when there are none or libsvm decided them."""
+    if not isinstance(ties, dict) or ties.get("rule") != "optimum":
+        return ""
+    train, loo = int(ties.get("training_within") or 0), int(ties.get("loo_within") or 0)
+    if not (train or loo):
+        return ""
+    return (
+        f"{loo} LOO and {train} training decision values within {float(ties['allowance']):.1g} of 0: "
+        "signs of the exact optimum (libsvm may differ there)"
+    )
 
 
 def same_support_and_loo_bound(bounds: dict[str, Any]) -> bool:
