@@ -205,3 +205,25 @@ def test_partial_feed_is_throttled_and_sends_the_last_state():
         feed(done)
     assert len(sent) <= 1 + 400 * 0.05 / (0.5 / scan_mod.PARTIAL_SHARE) + 1
     assert len(sent) >= 3
+
+
+def test_long_scans_say_when_they_fit_before_the_refit_bar(data, tmp_path, monkeypatch):
+    """Above NOTE_MIN_ROWS the fit and the neighbour evidence (minutes at 100,000 rows) are announced on
+    the progress stream before the refits' bar; below it nothing is added."""
+    import io
+
+    from holdfast.output.progress import ProgressBar
+
+    frame, path = data
+    monkeypatch.setattr(scan_mod, "NOTE_MIN_ROWS", 100)
+    stream = io.StringIO()
+    scan = _scan(path, frame, tmp_path, progress=ProgressBar(stream=stream, tty=False))
+    lines = stream.getvalue().splitlines()
+    m, d = int(scan.findings.summary["m"]), int(scan.findings.summary["d"])
+    assert lines[0] == f"fitting the svm model on {m:,} training rows"
+    assert lines[1].startswith("fitted in ") and lines[1].endswith(f"neighbour evidence, then {d:,} refits")
+    assert lines[2].startswith("refits: ")
+    monkeypatch.setattr(scan_mod, "NOTE_MIN_ROWS", 10**9)
+    stream = io.StringIO()
+    _scan(path, frame, tmp_path / "again", progress=ProgressBar(stream=stream, tty=False))
+    assert not any(line.startswith("fitting") for line in stream.getvalue().splitlines())

@@ -91,6 +91,17 @@ class _PartialFeed:
         self.on_partial(findings)
 
 
+#: From this many training rows on, the scan says on the progress stream when it fits and gathers the
+#: neighbour evidence (each takes a minute or more at 100,000 rows, before the refits' progress bar).
+NOTE_MIN_ROWS = 10_000
+
+
+def _note(progress: Progress | None, text: str) -> None:
+    note = getattr(progress, "note", None)
+    if callable(note):
+        note(text)
+
+
 def analyse(
     prepared: Prepared,
     spec: Spec,
@@ -117,7 +128,17 @@ def analyse(
     X_train = prepared.X[train_idx]
     y_train = prepared.y[train_idx]
     learner = make_learner(spec.learner)
+    long = len(train_idx) >= NOTE_MIN_ROWS
+    if long:
+        family = spec.learner.get("family", "svm")
+        _note(progress, f"fitting the {family} model on {len(train_idx):,} training rows")
     model = learner.fit(X_train, y_train)
+    if long:
+        _note(
+            progress,
+            f"fitted in {time.monotonic() - start:.0f} s; neighbour evidence, then "
+            f"{len(model.loo_candidates()):,} refits",
+        )
     held_idx = np.flatnonzero(~prepared.train)
     held_decision = learner.decision(prepared.X[held_idx]) if len(held_idx) else None
     held_pred = learner.predict(prepared.X[held_idx]) if len(held_idx) else np.empty(0, dtype=np.int64)

@@ -276,50 +276,100 @@ def face_steps(X: np.ndarray, y: np.ndarray, C: np.ndarray, alpha: np.ndarray, G
     the target tolerance, so the result does not depend on these steps. Returns True when a full Newton
     step was taken.
     """
-    F = np.flatnonzero((alpha > 0) & (alpha < C))
+    return bool(_face_steps(X, y, C, alpha, G, MAX_FACE_ROWS))
+
+
+@njit(nogil=True, cache=True)
+def _lstsq(A, b):
+    """numpy's ``lstsq(A, b, rcond=None)`` (cut-off eps max(A.shape)) in numba."""
+    eps = np.finfo(np.float64).eps
+    return np.linalg.lstsq(np.ascontiguousarray(A), b, eps * max(A.shape[0], A.shape[1]))[0]
+
+
+@njit(nogil=True, cache=True)
+def _face_steps(X, y, C, alpha, G, max_rows):
+    """:func:`face_steps` compiled (the loop ran about 80 small least-squares solves a refit in Python)."""
+    n_all = alpha.shape[0]
+    p = X.shape[1]
+    F = np.empty(n_all, dtype=np.int64)
+    n = 0
+    for t in range(n_all):
+        if alpha[t] > 0 and alpha[t] < C[t]:
+            F[n] = t
+            n += 1
+    F = F[:n].copy()
     while True:
-        n = len(F)
+        n = F.shape[0]
         if n == 0:
             return False
         yF = y[F]
-        V = X[F] * yF[:, None]
-        M = np.vstack([V.T, yF[None, :]])
-        g = G[F]
-        coef = np.linalg.lstsq(M.T, g, rcond=None)[0]
-        r = g - M.T @ coef
-        if float(np.linalg.norm(r)) > 1e-9 * max(1.0, float(np.linalg.norm(g))):
-            d, newton = -r, False
+        V = np.empty((n, p))
+        for i in range(n):
+            for f in range(p):
+                V[i, f] = X[F[i], f] * yF[i]
+        MT = np.empty((n, p + 1))  # M' = [V, y_F]
+        MT[:, :p] = V
+        MT[:, p] = yF
+        g = G[F].copy()
+        coef = _lstsq(MT, g)
+        r = g - MT @ coef
+        newton = False
+        if np.linalg.norm(r) > 1e-9 * max(1.0, np.linalg.norm(g)):
+            d = -r
         else:
-            if n > MAX_FACE_ROWS:
+            if n > max_rows:
                 return False
             A = np.empty((n + 1, n + 1))
             A[:n, :n] = V @ V.T
             A[:n, n] = yF
             A[n, :n] = yF
             A[n, n] = 0.0
-            d, newton = np.linalg.lstsq(A, np.concatenate([-g, [0.0]]), rcond=None)[0][:n], True
-        d -= yF * (float(yF @ d) / n)  # y_F'd = 0 to rounding: the step keeps y'a = 0
-        if not np.all(np.isfinite(d)) or not np.any(d):
+            rhs = np.empty(n + 1)
+            rhs[:n] = -g
+            rhs[n] = 0.0
+            d = _lstsq(A, rhs)[:n].copy()
+            newton = True
+        d -= yF * (np.dot(yF, d) / n)  # y_F'd = 0 to rounding: the step keeps y'a = 0
+        if not np.all(np.isfinite(d)) or not np.any(d != 0.0):
             return False
-        with np.errstate(divide="ignore", invalid="ignore"):
-            lim = np.where(d < 0, -alpha[F] / d, np.where(d > 0, (C[F] - alpha[F]) / d, np.inf))
-        k = int(np.argmin(lim))
-        tau = float(lim[k])
+        k = 0
+        tau = np.inf
+        for i in range(n):
+            a = alpha[F[i]]
+            if d[i] < 0:
+                lim = -a / d[i]
+            elif d[i] > 0:
+                lim = (C[F[i]] - a) / d[i]
+            else:
+                lim = np.inf
+            if lim < tau:  # first minimum, as np.argmin
+                tau = lim
+                k = i
         full = newton and tau >= 1.0
         if not full and not (tau > 0 and np.isfinite(tau)):
             return False
-        step = d if full else tau * d
-        new = np.clip(alpha[F] + step, 0.0, C[F])
+        new = np.empty(n)
+        for i in range(n):
+            step = d[i] if full else tau * d[i]
+            new[i] = min(max(alpha[F[i]] + step, 0.0), C[F[i]])
         if not full:
             new[k] = 0.0 if d[k] < 0 else C[F[k]]  # exactly on the bound it reached
         delta = new - alpha[F]
-        if abs(float(yF @ delta)) > 1e-12 * max(1.0, float(np.sum(C[F]))):
+        if abs(np.dot(yF, delta)) > 1e-12 * max(1.0, np.sum(C[F])):
             return False  # rounding would move y'a; SMO goes on instead
-        alpha[F] = new
-        G[F] += yF * (V @ (V.T @ delta))
+        for i in range(n):
+            alpha[F[i]] = new[i]
+        upd = V @ (V.T @ delta)
+        for i in range(n):
+            G[F[i]] += yF[i] * upd[i]
         if full:
             return True
-        F = F[(new > 0) & (new < C[F])]  # the rows that stayed free
+        keep = 0
+        for i in range(n):
+            if new[i] > 0 and new[i] < C[F[i]]:
+                F[keep] = F[i]
+                keep += 1
+        F = F[:keep].copy()
 
 
 def finish(

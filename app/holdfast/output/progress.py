@@ -152,6 +152,12 @@ class ProgressBar:
         self.stream.flush()
         self.ended = finished
 
+    def note(self, text: str) -> None:
+        """A stage of a long scan before the refits (the fit, the neighbour evidence), on its own line."""
+        self.end_line()
+        self.stream.write(f"{text}\n")
+        self.stream.flush()
+
     def end_line(self) -> None:
         """End a terminal line left open (an interrupted scan), so the next message starts on its own."""
         if self.tty and self in _OPEN:
