@@ -346,17 +346,19 @@ class SVMRefitProblem:
     def refit_without(self, row: int) -> RefitOutcome:
         """Refit without training row ``row``; its LOO prediction, the flipped rows, the largest change."""
         m = self.y.shape[0]
-        keep = np.concatenate([np.arange(row), np.arange(row + 1, m)])
+        counts = np.bincount(self.y, minlength=self.n_classes)
+        counts[self.y[row]] -= 1
+        present = int(np.count_nonzero(counts))  # classes left without the row (np.unique: 2 ms at 100,000)
         fast = self.K is not None or self.KW is not None
-        two = np.unique(self.y[keep]).size == 2
+        two = present == 2
         if self.alpha is not None and two:
             pred, dec = self._fit_warm(row)
-        elif self.pairs is not None and np.unique(self.y[keep]).size == self.n_classes:
+        elif self.pairs is not None and present == self.n_classes:
             pred, dec = self._fit_pairs(row)
         elif self.working is not None and fast and two:
             pred, dec = self._fit_working_set(row)
         else:
-            pred, dec = self.fit_predict(keep)
+            pred, dec = self.fit_predict(np.concatenate([np.arange(row), np.arange(row + 1, m)]))
         return refit_outcome(row, pred, dec, self.y, self.full_prediction, self.full_decision)
 
 
