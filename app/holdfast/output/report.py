@@ -25,7 +25,7 @@ from holdfast.atomic import atomic_write_bytes
 from holdfast.errors import UserError
 from holdfast.insight.explain import percent
 from holdfast.output.plots import margin_figure, png, score_figure, whatif_figure
-from holdfast.output.terminal import same_support_and_loo_bound
+from holdfast.output.terminal import same_support_and_loo_bound, ties_line
 from holdfast.review.decisions import decisions_dict
 from holdfast.review.events import Decision
 from holdfast.review.journal import Journal
@@ -142,6 +142,7 @@ def _summary(scan: Scan) -> list[str]:
             "epochs",
             "intercept",
             "tol",
+            "ties_resolved",
         )
         if k in learner
     )
@@ -166,6 +167,9 @@ def _summary(scan: Scan) -> list[str]:
     ]
     if family.get("loo") and family.get("name", "svm") != "svm":
         rows.append(["how the LOO was computed", md_escape(family["loo"])])
+    ties = ties_line(family.get("ties"))
+    if ties:
+        rows.append(["near-zero signs", md_escape(ties)])
     if s.get("held_out"):
         h = s["held_out"]
         rows.append(["held-out rows", f"{h['n']} ({h['errors']} errors, {h['error_rate']:.4f})"])

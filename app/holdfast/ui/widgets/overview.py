@@ -23,6 +23,7 @@ from textual.containers import VerticalScroll
 from textual.widgets import Static
 
 from holdfast.insight.histograms import Histogram
+from holdfast.output.terminal import ties_line
 from holdfast.ui.textsafe import safe_text
 from holdfast.ui.widgets.histogram import HistogramBars
 from holdfast.ui.widgets.text_layout import fmt_number
@@ -238,6 +239,9 @@ class OverviewPanel(VerticalScroll):
         if not s.get("loo_exact", True) and "loo_exact_rows" in s:
             kind += f", {_count(s['loo_exact_rows'])} exact"
         out.append(self._pair(f"LOO errors ({kind})", _count(s.get("loo_errors")), style=self._s("warning")))
+        ties = ties_line(family.get("ties"))
+        if ties:  # signs of decision values next to 0 (learner.ties = "optimum")
+            out.append(Text(f"near-zero signs: {ties}", style=self._s("muted")))
         held = s.get("held_out")
         if held:
             rate = held.get("error_rate")
