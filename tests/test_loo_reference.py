@@ -320,3 +320,28 @@ def test_fallback_decision_values_are_libsvms(cancer_subsample, limit):
     assert dec is not None
     assert np.allclose(dec, ref.decision_function(X), rtol=0, atol=1e-9)
     assert np.array_equal(pred, ref.predict(X))
+
+
+@pytest.mark.parametrize("stored", [None, 20])
+def test_multiclass_above_the_limit_matches_leave_one_out(monkeypatch, stored):
+    """More than two classes with no m x m matrix: our one-vs-one machines with kernel rows from X (all of
+    libsvm's support rows stored, or only 20 of them), refitting only the machines a row is in. Reference:
+    LeaveOneOut and independent SVC refits on the wine data (Forina et al., UCI; bundled with
+    scikit-learn), class weights on."""
+    from sklearn.datasets import load_wine
+
+    import holdfast.learners.svm as svm_mod
+
+    if stored is not None:
+        monkeypatch.setattr(svm_mod, "WORKING_ROWS_MAX_BYTES", 8 * 178 * stored)
+    X, y = load_wine(return_X_y=True)
+    X = StandardScaler().fit_transform(X)
+    learner = SVMLearner(kernel="rbf", C=1.0, class_weight="balanced", precompute_max_rows=10)
+    model = learner.fit(X, y)
+    problem = learner.refit_problem()
+    assert problem.K is None and problem.pairs is not None
+    assert problem.solver.KW.shape[0] == (stored or problem.solver.KW.shape[0]) < len(y)
+    result = exact_loo(model, problem)
+    assert int((result.loo_code != _reference_loo(X, y, learner)).sum()) == 0
+    sv = np.flatnonzero(model.support)
+    assert np.array_equal(result.flip_count[sv], _reference_flips(X, y, learner, model.prediction, sv))

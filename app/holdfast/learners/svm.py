@@ -16,8 +16,9 @@ limit, and every refit starts warm from that solution; the kernel rows of the su
 the margin are stored against all rows (closest to the margin first, up to ``WORKING_ROWS_MAX_BYTES``),
 the others computed from X when needed. The linear kernel with two classes uses its own solver from the
 primal vector at every size (:mod:`holdfast.learners.smo_linear`); above the limit its full fit is ours
-too (libsvm's took over 45 minutes at 100,000 rows). More than two classes above the limit: SVC fits,
-and each refit is a libsvm fit (exact, but slow). ``solver="libsvm"`` gives the SVC engine (two-class
+too (libsvm's took over 45 minutes at 100,000 rows). More than two classes above the limit: libsvm's fit
+chooses the kernel rows to store (the support rows of any machine, free ones first), then one-vs-one
+machines of our own as below the limit. ``solver="libsvm"`` gives the SVC engine (two-class
 refits on a working set) everywhere.
 """
 
@@ -250,6 +251,11 @@ class SVMLearner:
             kernel = self._stored_rows_kernel(X, y, seed_svc)
         elif self.solver == "own" and self.kernel == "linear":  # no m x m matrix: K(x_i, .) = X x_i
             kernel = smo.Kernel(X=X, kind="linear", cache_rows=LINEAR_CACHE_ROWS)
+        elif self.solver == "own" and n_classes > 2 and np.all(np.bincount(y, minlength=n_classes) > 0):
+            # more classes above the limit: one-vs-one machines of our own (a refit re-solves only the
+            # machines the row is a support row of), the kernel rows of libsvm's support rows stored
+            seed_svc = SVC(**svc_params).fit(X, y)
+            kernel = self._stored_rows_kernel(X, y, seed_svc)
         if kernel is not None and n_classes == 2:
             own = self._fit_own(kernel, y, row_c, problem, seed_svc)
         elif kernel is not None and np.all(np.bincount(y, minlength=n_classes) > 0):
@@ -334,14 +340,20 @@ class SVMLearner:
         args = dict(kind=self.kernel, gamma=self.gamma_, degree=self.degree, coef0=self.coef0)
         if self.kernel == "linear":
             return smo.Kernel(X=X, cache_rows=LINEAR_CACHE_ROWS, **args)  # type: ignore[arg-type]
-        ypm = np.where(y == 1, 1.0, -1.0)
-        yf = ypm * seed.decision_function(X)
-        support = np.zeros(m, dtype=bool)
-        support[seed.support_] = True
-        near = np.flatnonzero(support | (yf < 1.0 + WORKING_SET_SLACK))
         budget = max(0, int(WORKING_ROWS_MAX_BYTES // (8 * m)))
-        rows = near[np.argsort(np.abs(yf[near] - 1.0), kind="stable")][:budget]
-        rows = np.sort(rows)
+        if len(seed.classes_) > 2:  # one-vs-one machines: the support rows of any machine, free ones first
+            weight = np.abs(seed.dual_coef_).max(axis=0)
+            free = weight < 0.999 * self.C * (
+                np.array([(self.class_weight_ or {}).get(int(c), 1.0) for c in y[seed.support_]])
+            )
+            rows = np.sort(seed.support_[np.argsort(~free, kind="stable")][:budget])
+        else:
+            ypm = np.where(y == 1, 1.0, -1.0)
+            yf = ypm * seed.decision_function(X)
+            support = np.zeros(m, dtype=bool)
+            support[seed.support_] = True
+            near = np.flatnonzero(support | (yf < 1.0 + WORKING_SET_SLACK))
+            rows = np.sort(near[np.argsort(np.abs(yf[near] - 1.0), kind="stable")][:budget])
         wpos = np.full(m, -1, dtype=np.int64)
         wpos[rows] = np.arange(len(rows))
         KW = np.empty((len(rows), m))

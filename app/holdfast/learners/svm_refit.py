@@ -16,9 +16,8 @@ Safeguard kept from the libsvm working-set path: when the refit's objective is f
 (several optimal models; libsvm takes the middle of the optimal interval from its own final state), the
 whole problem is handed to libsvm cold, so the choice is the reference's (``_intercept_is_unique``).
 
-With the "libsvm" engine (and for more than two classes above the precompute limit) the libsvm
-working-set solve of earlier versions is used: a solve on the support rows and rows near the margin, then
-a KKT check of every other row (Osuna, Freund & Girosi 1997).
+With the "libsvm" engine the libsvm working-set solve of earlier versions is used: a solve on the support
+rows and rows near the margin, then a KKT check of every other row (Osuna, Freund & Girosi 1997).
 """
 
 from __future__ import annotations
