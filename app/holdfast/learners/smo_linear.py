@@ -206,18 +206,24 @@ def solve(
     QD: np.ndarray | None = None,
     active: np.ndarray | None = None,
     max_iter: int | None = None,
+    w: np.ndarray | None = None,
+    current: bool = False,
 ) -> tuple[int, int]:
     """SMO on every row of ``X`` from a feasible ``alpha`` (``y`` +1/-1 float, ``C`` per-row box, 0 takes a
     row out); ``alpha`` and ``G`` in place, G recomputed afresh at the end. ``active``: rows to work on
     first (all rows meet the stopping rule at the end either way). A run stopped by a given ``max_iter``
     leaves G right on the free rows only (the next call recomputes it); the default cap (libsvm's) leaves
-    it right everywhere. Returns (pair updates, full checks)."""
+    it right everywhere. ``w``: an array (p) for the primal vector, kept up to date in place; with
+    ``current`` it already matches ``alpha`` and G is right on the ``active`` rows (no O(m p) pass to
+    start), else both are computed afresh. Returns (pair updates, full checks)."""
     X = np.ascontiguousarray(X, dtype=np.float64)
     if QD is None:
         QD = np.einsum("ij,ij->i", X, X)
     n = X.shape[0]
-    w = np.zeros(X.shape[1])
-    _refresh(X, y, alpha, w, G)
+    if w is None:
+        w = np.zeros(X.shape[1])
+    if not current:
+        _refresh(X, y, alpha, w, G)
     act = np.arange(n) if active is None else np.ascontiguousarray(active, dtype=np.int64)
     its, checks = _smo_linear(
         X,
@@ -255,7 +261,9 @@ MAX_FACE_ROWS = 1500
 SHORT_RUN = 200
 
 
-def face_steps(X: np.ndarray, y: np.ndarray, C: np.ndarray, alpha: np.ndarray, G: np.ndarray) -> bool:
+def face_steps(
+    X: np.ndarray, y: np.ndarray, C: np.ndarray, alpha: np.ndarray, G: np.ndarray, w: np.ndarray | None = None
+) -> bool:
     """Steps on the face of the box the current alpha lies on (rows at 0 or C stay there), until the face
     problem is solved or no free row is left; alpha changed in place, G kept right on the free rows only.
 
@@ -276,7 +284,11 @@ def face_steps(X: np.ndarray, y: np.ndarray, C: np.ndarray, alpha: np.ndarray, G
     the target tolerance, so the result does not depend on these steps. Returns True when a full Newton
     step was taken.
     """
-    return bool(_face_steps(X, y, C, alpha, G, MAX_FACE_ROWS))
+    dw = np.zeros(X.shape[1])
+    full = bool(_face_steps(X, y, C, alpha, G, MAX_FACE_ROWS, dw))
+    if w is not None:
+        w += dw
+    return full
 
 
 @njit(nogil=True, cache=True)
@@ -287,8 +299,9 @@ def _lstsq(A, b):
 
 
 @njit(nogil=True, cache=True)
-def _face_steps(X, y, C, alpha, G, max_rows):
-    """:func:`face_steps` compiled (the loop ran about 80 small least-squares solves a refit in Python)."""
+def _face_steps(X, y, C, alpha, G, max_rows, dw):
+    """:func:`face_steps` compiled (the loop ran about 80 small least-squares solves a refit in Python);
+    the change of the primal vector is added to ``dw``."""
     n_all = alpha.shape[0]
     p = X.shape[1]
     F = np.empty(n_all, dtype=np.int64)
@@ -359,9 +372,11 @@ def _face_steps(X, y, C, alpha, G, max_rows):
             return False  # rounding would move y'a; SMO goes on instead
         for i in range(n):
             alpha[F[i]] = new[i]
-        upd = V @ (V.T @ delta)
+        step_w = V.T @ delta  # the change of w: sum over F of y_t delta_t x_t
+        dw += step_w
+        upd = V @ step_w
         for i in range(n):
-            G[F[i]] += yF[i] * upd[i]
+            G[F[i]] += upd[i]  # Q_FF delta = V (V'delta)
         if full:
             return True
         keep = 0
@@ -387,14 +402,15 @@ def finish(
     a long linear tail here (measured at 20,000 rows: millions of pair updates between 1e-6 and 1e-9, and
     tens of thousands to bring the free rows down to about p + 1). Returns the pair updates."""
     X = kernel.X
-    its, _ = solve(X, y, C, alpha, G, max(eps, LOOSE), QD, active)
+    w = np.zeros(X.shape[1])  # the primal vector, carried between the steps below (G right on free rows)
+    its, _ = solve(X, y, C, alpha, G, max(eps, LOOSE), QD, active, w=w)
     for _ in range(FACE_ROUNDS):
-        face_steps(X, y, C, alpha, G)
-        more, _ = solve(X, y, C, alpha, G, eps, QD, _first(alpha, C), max_iter=SHORT_RUN)
+        face_steps(X, y, C, alpha, G, w)
+        more, _ = solve(X, y, C, alpha, G, eps, QD, _first(alpha, C), SHORT_RUN, w, True)
         its += more
         if more < SHORT_RUN:
             return its
-    more, _ = solve(X, y, C, alpha, G, eps, QD, _first(alpha, C))
+    more, _ = solve(X, y, C, alpha, G, eps, QD, _first(alpha, C), w=w, current=True)
     return its + more
 
 
