@@ -212,10 +212,10 @@ def solve(
     """SMO on every row of ``X`` from a feasible ``alpha`` (``y`` +1/-1 float, ``C`` per-row box, 0 takes a
     row out); ``alpha`` and ``G`` in place, G recomputed afresh at the end. ``active``: rows to work on
     first (all rows meet the stopping rule at the end either way). A run stopped by a given ``max_iter``
-    leaves G right on the free rows only (the next call recomputes it); the default cap (libsvm's) leaves
-    it right everywhere. ``w``: an array (p) for the primal vector, kept up to date in place; with
-    ``current`` it already matches ``alpha`` and G is right on the ``active`` rows (no O(m p) pass to
-    start), else both are computed afresh. Returns (pair updates, full checks)."""
+    leaves G right on the free rows only (the next call recomputes it unless ``current``); the default
+    cap (libsvm's) leaves it right everywhere. ``w``: an array (p) for the primal vector, kept up to date
+    in place; with ``current`` it already matches ``alpha`` and G is right on the ``active`` rows (no
+    O(m p) pass to start), else both are computed afresh. Returns (pair updates, full checks)."""
     X = np.ascontiguousarray(X, dtype=np.float64)
     if QD is None:
         QD = np.einsum("ij,ij->i", X, X)

@@ -248,14 +248,14 @@ class SVMLearner:
             # above the limit: libsvm's cold fit (shrinking, its own kernel cache) is the start, our solver
             # takes it to WARM_TOL with the most used kernel rows stored, and every refit starts from it
             seed_svc = SVC(**svc_params).fit(X, y)
-            kernel = self._stored_rows_kernel(X, y, seed_svc)
+            kernel = self._stored_rows_kernel(X, y, seed_svc, row_c)
         elif self.solver == "own" and self.kernel == "linear":  # no m x m matrix: K(x_i, .) = X x_i
             kernel = smo.Kernel(X=X, kind="linear", cache_rows=LINEAR_CACHE_ROWS)
         elif self.solver == "own" and n_classes > 2 and np.all(np.bincount(y, minlength=n_classes) > 0):
             # more classes above the limit: one-vs-one machines of our own (a refit re-solves only the
             # machines the row is a support row of), the kernel rows of libsvm's support rows stored
             seed_svc = SVC(**svc_params).fit(X, y)
-            kernel = self._stored_rows_kernel(X, y, seed_svc)
+            kernel = self._stored_rows_kernel(X, y, seed_svc, row_c)
         if kernel is not None and n_classes == 2:
             own = self._fit_own(kernel, y, row_c, problem, seed_svc)
         elif kernel is not None and np.all(np.bincount(y, minlength=n_classes) > 0):
@@ -332,7 +332,7 @@ class SVMLearner:
             extras=extras,
         )
 
-    def _stored_rows_kernel(self, X: np.ndarray, y: np.ndarray, seed: SVC) -> smo.Kernel:
+    def _stored_rows_kernel(self, X: np.ndarray, y: np.ndarray, seed: SVC, row_c: np.ndarray) -> smo.Kernel:
         """Kernel rows from X, with the rows refits use most stored (``smo.Kernel.KW``): support rows and
         rows near the margin under ``seed``, closest to the margin first, up to ``WORKING_ROWS_MAX_BYTES``
         (none for the linear kernel, whose sums go through the primal vector)."""
@@ -342,10 +342,7 @@ class SVMLearner:
             return smo.Kernel(X=X, cache_rows=LINEAR_CACHE_ROWS, **args)  # type: ignore[arg-type]
         budget = max(0, int(WORKING_ROWS_MAX_BYTES // (8 * m)))
         if len(seed.classes_) > 2:  # one-vs-one machines: the support rows of any machine, free ones first
-            weight = np.abs(seed.dual_coef_).max(axis=0)
-            free = weight < 0.999 * self.C * (
-                np.array([(self.class_weight_ or {}).get(int(c), 1.0) for c in y[seed.support_]])
-            )
+            free = np.abs(seed.dual_coef_).max(axis=0) < 0.999 * row_c[seed.support_]
             rows = np.sort(seed.support_[np.argsort(~free, kind="stable")][:budget])
         else:
             ypm = np.where(y == 1, 1.0, -1.0)
