@@ -73,9 +73,14 @@ def seed_without(
 #: Largest free set the Newton step of :func:`polish` solves directly ((n+1)^2 system).
 POLISH_MAX_FREE = 1500
 #: Newton-then-short-SMO rounds of a warm refit before a plain SMO run finishes it.
-POLISH_ROUNDS = 4
+POLISH_ROUNDS = 12
 #: The violation SMO reaches before the first Newton step of a warm refit.
-LOOSE_EPS = 3e-3
+LOOSE_EPS = 1e-2
+#: SMO pair updates between two Newton steps. A fixed number, not one growing with the active rows: the
+#: steps land on the optimum once the free set is right, and SMO's part is only to move rows on or off
+#: their bounds (per refit, single thread: 102 -> 77 ms at 20,000 RBF rows, 1.2 s -> 0.41 s at 50,000,
+#: 39 -> 30 ms at 10,000; the same results; the old rule was 50 + active rows / 20, 3e-3 and 4 rounds).
+SHORT_ITERATIONS = 50
 
 
 def polish(
@@ -176,9 +181,9 @@ def refit_without(
 ) -> tuple[float, int]:
     """Warm-started solve of the problem without position ``pos``; arrays changed in place.
 
-    Alpha seeding (:func:`seed_without`), SMO to a loose violation (1e-3), then rounds of Newton steps on
-    the free set (:func:`polish`, an active-set method: a step stopped by a bound fixes that row and the
-    next step solves the smaller face) each followed by a short SMO run at ``eps``; the last word is
+    Alpha seeding (:func:`seed_without`), SMO to a loose violation (``LOOSE_EPS``), then rounds of Newton
+    steps on the free set (:func:`polish`, an active-set method: a step stopped by a bound fixes that row
+    and the next step solves the smaller face) each followed by a short SMO run at ``eps``; the last word is
     always an unlimited SMO run at ``eps``, so the result meets libsvm's stopping rule whatever the
     Newton steps did. ``near``: rows (boolean per position) SMO works on first besides those with a
     non-zero alpha after the seed (shrinking; see ``_smo``). Returns (rho, SMO iterations).
@@ -215,7 +220,7 @@ def finish(
     active = None if near is None else np.flatnonzero(near | ((alpha > 0) & (alpha < C)))
     acc = None if active is None else (np.zeros(len(idx)), np.zeros(len(idx), dtype=np.bool_))
     its = solve(kernel, idx, y, C, alpha, G, max(eps, LOOSE_EPS), QD, active=active, acc=acc, defer=True)
-    short = 50 + (len(idx) if active is None else len(active)) // 20
+    short = SHORT_ITERATIONS
     for _ in range(POLISH_ROUNDS):
         for _ in range(8):
             if polish(kernel, idx, y, C, alpha, G, all_rows, face, active, acc):
