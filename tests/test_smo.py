@@ -131,3 +131,59 @@ def test_warm_refit_equals_a_cold_solve_without_the_row(kernel):
         ref_dec = ref.decision_function(K[:, keep])
         assert np.allclose(ypm * (g + 1.0) - rho, ref_dec, atol=1e-4)
         assert np.array_equal(ypm * (g + 1.0) - rho > 0, ref_dec > 0)
+
+
+@pytest.mark.parametrize("data", ["cancer", "digits"])
+def test_warm_refit_that_must_grow_its_active_rows(data, monkeypatch):
+    """A warm refit told to work on the free rows only (``near`` all False) must let rows join
+    (``smo.regrow``) until every row meets the stopping rule: the result equals a cold libsvm solve
+    without the row (Chang & Lin 2011), and the gradient it leaves is right for every row, not only the
+    active ones."""
+    X, y = _two_class(data)
+    K = kernel_matrix(X, X, "rbf", resolve_gamma("scale", X), 3, 0.0)
+    m = len(y)
+    ypm = np.where(y == 1, 1.0, -1.0)
+    c = np.full(m, 1.0)
+    kern = smo.Kernel(K=K)
+    idx = np.arange(m)
+    alpha, grad, _, _ = smo.fit_dual(kern, idx, ypm, c, 1e-10)
+    grown = []
+
+    def regrow(*args):
+        out = smo.regrow(*args)
+        grown.append(len(out) > len(args[7]))
+        return out
+
+    monkeypatch.setattr(warm, "regrow", regrow)
+    for row in np.flatnonzero(alpha >= 1.0 - 1e-12)[::7]:  # rows at C: their removal moves the most
+        a, g, cc = alpha.copy(), grad.copy(), c.copy()
+        rho, _ = warm.refit_without(kern, idx, ypm, cc, a, g, int(row), 1e-10, True, near=np.zeros(m, bool))
+        assert np.allclose(g, smo.gradient(kern, idx, ypm, a), atol=1e-8)
+        keep = np.delete(idx, row)
+        ref = SVC(kernel="precomputed", C=1.0, tol=1e-10).fit(K[np.ix_(keep, keep)], y[keep])
+        ref_dec = ref.decision_function(K[:, keep])
+        assert np.allclose(ypm * (g + 1.0) - rho, ref_dec, atol=1e-4)
+        assert np.array_equal(ypm * (g + 1.0) - rho > 0, ref_dec > 0)
+    assert any(grown)  # rows outside the first active set did join
+
+
+def test_regrow_brings_every_gradient_up_to_date():
+    """``smo.regrow`` after SMO ran with ``defer`` on some rows: every row's gradient equals one computed
+    afresh, and it returns no rows exactly when every row meets the stopping rule."""
+    X, y = _two_class("cancer")
+    K = kernel_matrix(X, X, "rbf", resolve_gamma("scale", X), 3, 0.0)
+    m = len(y)
+    ypm = np.where(y == 1, 1.0, -1.0)
+    c = np.full(m, 1.0)
+    kern = smo.Kernel(K=K)
+    idx = np.arange(m)
+    alpha, G = np.zeros(m), -np.ones(m)
+    active = np.arange(0, m, 3)
+    acc = (np.zeros(m), np.zeros(m, dtype=np.bool_))
+    smo.solve(kern, idx, ypm, c, alpha, G, 1e-8, active=active, acc=acc, defer=True)
+    nxt = smo.regrow(kern, idx, ypm, c, alpha, G, 1e-8, active, acc)
+    assert np.allclose(G, smo.gradient(kern, idx, ypm, alpha), atol=1e-10)
+    assert not acc[1].any() and np.all(acc[0] == 0)
+    assert len(nxt) > len(active) and np.all(np.isin(active, nxt))  # the other rows were never looked at
+    smo.solve(kern, idx, ypm, c, alpha, G, 1e-8)
+    assert len(smo.regrow(kern, idx, ypm, c, alpha, G, 1e-8, np.arange(m), acc)) == 0

@@ -275,6 +275,61 @@ def _grown(act, y, C, alpha, G, eps):
 
 
 @njit(nogil=True, cache=True)
+def _regrow(
+    K,
+    X,
+    kind,
+    gamma,
+    degree,
+    coef0,
+    idx,
+    ident,
+    y,
+    C,
+    alpha,
+    G,
+    eps,
+    ncache,
+    act,
+    KW,
+    wpos,
+    wall,
+    dacc,
+    touched,
+):
+    """``_unshrink`` then ``_grown`` (see both) outside SMO: the rows SMO should work on next, or an empty
+    array when every row meets the stopping rule."""
+    n = idx.shape[0]
+    cache = np.empty((max(ncache, 2), n if not ident else 1))
+    slot_of = np.full(n, -1, dtype=np.int64)
+    owner = np.full(cache.shape[0], -1, dtype=np.int64)
+    state = np.zeros(1, dtype=np.int64)
+    _unshrink(
+        K,
+        X,
+        kind,
+        gamma,
+        degree,
+        coef0,
+        idx,
+        ident,
+        y,
+        G,
+        dacc,
+        touched,
+        act,
+        cache,
+        slot_of,
+        owner,
+        state,
+        KW,
+        wpos,
+        wall,
+    )
+    return _grown(act, y, C, alpha, G, eps)
+
+
+@njit(nogil=True, cache=True)
 def _smo(
     K,
     X,
@@ -660,6 +715,50 @@ def solve(
             acc[0] if acc is not None else np.zeros(1),
             acc[1] if acc is not None else np.zeros(1, dtype=np.bool_),
             bool(defer and acc is not None),
+        )
+    )
+
+
+def regrow(
+    kernel: Kernel,
+    idx: np.ndarray,
+    y: np.ndarray,
+    C: np.ndarray,
+    alpha: np.ndarray,
+    G: np.ndarray,
+    eps: float,
+    active: np.ndarray,
+    acc: tuple[np.ndarray, np.ndarray],
+) -> np.ndarray:
+    """After :func:`solve` runs with ``defer`` on ``active``: bring every other row's gradient up to date
+    from ``acc`` (which is then cleared) and return the rows to work on next (``active`` plus the rows
+    that violate the stopping rule with one of them, every row when only outside rows violate), or an
+    empty array when every row meets the stopping rule ``m(a) - M(a) < eps``."""
+    idx = np.ascontiguousarray(idx, dtype=np.int64)
+    ident = kernel.precomputed and len(idx) == kernel.K.shape[0] and bool(np.all(idx == np.arange(len(idx))))
+    ncache = kernel.cache_rows if not kernel.precomputed else min(kernel.cache_rows, 64)
+    return np.asarray(
+        _regrow(
+            kernel.K,
+            kernel.X,
+            kernel.kind,
+            kernel.gamma,
+            kernel.degree,
+            kernel.coef0,
+            idx,
+            ident,
+            y,
+            C,
+            alpha,
+            G,
+            float(eps),
+            max(2, ncache),
+            np.ascontiguousarray(active, dtype=np.int64),
+            kernel.KW,
+            kernel.wpos,
+            _is_all_rows(kernel, idx),
+            acc[0],
+            acc[1],
         )
     )
 

@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 
 from holdfast.learners.face import FaceInverse
-from holdfast.learners.smo import Kernel, gradient, rho, solve
+from holdfast.learners.smo import Kernel, gradient, regrow, rho, solve
 
 
 def _shift(
@@ -72,6 +72,8 @@ def seed_without(
 
 #: Largest free set the Newton step of :func:`polish` solves directly ((n+1)^2 system).
 POLISH_MAX_FREE = 1500
+#: Newton steps of one :func:`polish` call (each after the first on a smaller face).
+POLISH_STEPS = 8
 #: Newton-then-short-SMO rounds of a warm refit before a plain SMO run finishes it.
 POLISH_ROUNDS = 12
 #: The violation SMO reaches before the first Newton step of a warm refit.
@@ -81,6 +83,9 @@ LOOSE_EPS = 1e-2
 #: their bounds (per refit, single thread: 102 -> 77 ms at 20,000 RBF rows, 1.2 s -> 0.41 s at 50,000,
 #: 39 -> 30 ms at 10,000; the same results; the old rule was 50 + active rows / 20, 3e-3 and 4 rounds).
 SHORT_ITERATIONS = 50
+#: Times the active rows of a warm refit may grow (rows outside them that violate the stopping rule join,
+#: and Newton steps go on over the larger set) before a plain SMO run over every row finishes it.
+GROW_ROUNDS = 4
 
 
 def polish(
@@ -94,35 +99,82 @@ def polish(
     face: FaceInverse | None = None,
     active: np.ndarray | None = None,
     acc: tuple[np.ndarray, np.ndarray] | None = None,
+    max_steps: int = POLISH_STEPS,
 ) -> bool:
-    """One Newton step on the face of the box the current alpha lies on (rows at 0 or C stay there).
+    """Newton steps on the face of the box the current alpha lies on (rows at 0 or C stay there).
 
     On that face the dual is an equality-constrained quadratic: ``Q_FF d + b y_F = -G_F``, ``y_F'd = 0``
     over the free rows F (the KKT system of the face problem; e.g. Nocedal & Wright 2006, *Numerical
     Optimization*, section 16.1). When SMO has found the right free set, one step lands on the optimum to
     rounding error, which saves SMO's slow linear tail (most of its iterations are spent between a
-    violation of 1e-3 and 1e-8). If the step leaves the box, only the part up to the first bound is
-    taken (the objective still decreases along it: a convex quadratic minimised at the full step). The
+    violation of 1e-3 and 1e-8). If a step leaves the box, only the part up to the first bound is taken
+    (the objective still decreases along it: a convex quadratic minimised at the full step), that row
+    leaves the face, and the next step solves the smaller face (an active-set method), up to
+    ``max_steps`` steps. The faces only shrink, so between steps only the first face's gradient is kept
+    current (|F|^2 each); the other rows' gradient is updated once at the end from the summed change. The
     caller always finishes with :func:`solve` at the target tolerance, so the result does not depend on
-    this step succeeding. Returns True when the full step was taken. ``all_rows``: ``idx`` is every
+    these steps succeeding. Returns True when a full step was taken. ``all_rows``: ``idx`` is every
     training row in order (kernel rows are then plain rows of K). ``face``: the full solution's face
     inverse (:class:`holdfast.learners.face.FaceInverse`), which gives the same step in O(|F|^2) when the
     free set is close to the full solution's. ``active``/``acc``: only the gradient of the rows
     ``active`` (which hold every free row) is updated, and each row's change of y a is added to
     ``acc`` for a later update of the others (see :func:`finish`).
     """
-    F = np.flatnonzero((alpha > 0) & (alpha < C))
+    F0 = np.flatnonzero((alpha > 0) & (alpha < C))
+    if len(F0) == 0:
+        return False
+    moved = np.zeros(len(F0))  # summed change of y a over F0
+    full = False
+    for _ in range(max_steps):
+        F = np.flatnonzero((alpha > 0) & (alpha < C))
+        d = _newton_step(kernel, idx, y, C, alpha, G, F, face)
+        if d is None:
+            break
+        full, new = d
+        dy = (new - alpha[F]) * y[F]
+        alpha[F] = new
+        moved[np.searchsorted(F0, F)] += dy
+        G[F0] += y[F0] * kernel.combo(idx[F], dy, idx[F0])
+        if full:
+            break
+    nz = np.flatnonzero(moved != 0.0)
+    if len(nz) == 0:
+        return full
+    rows, dy = F0[nz], moved[nz]
+    if active is not None and acc is not None:
+        rest = np.setdiff1d(active, F0, assume_unique=True)
+        G[rest] += y[rest] * kernel.combo(idx[rows], dy, idx[rest])
+        acc[0][rows] += dy
+        acc[1][rows] = True
+    else:
+        rest = np.setdiff1d(np.arange(len(idx)), F0, assume_unique=True)
+        G[rest] += y[rest] * kernel.combo(idx[rows], dy, idx[rest])
+    return full
+
+
+def _newton_step(
+    kernel: Kernel,
+    idx: np.ndarray,
+    y: np.ndarray,
+    C: np.ndarray,
+    alpha: np.ndarray,
+    G: np.ndarray,
+    F: np.ndarray,
+    face: FaceInverse | None,
+) -> tuple[bool, np.ndarray] | None:
+    """One step of :func:`polish` over the free rows F: (full step taken, new alpha_F), the step cut at
+    the first bound it reaches (that row then lies exactly on it); None when there is no step to take."""
     n = len(F)
     if n == 0:
-        return False
+        return None
     yF = y[F]
     d = face.step(kernel, idx, y, F, G) if face is not None else None
     if d is None:
         if n > POLISH_MAX_FREE:
-            return False
+            return None
         d = _direct_step(kernel, idx, yF, F, G)
         if d is None:
-            return False
+            return None
     d = d - yF * (float(yF @ d) / n)  # y_F'd = 0 to rounding: the step keeps y'a = 0 (feasibility)
     new = alpha[F] + d
     full = bool(np.all(new >= 0) and np.all(new <= C[F]))
@@ -131,19 +183,12 @@ def polish(
             lim = np.where(d < 0, -alpha[F] / d, np.where(d > 0, (C[F] - alpha[F]) / d, np.inf))
         tau = float(np.min(lim))
         if not tau > 0:
-            return False
+            return None
         new = np.clip(alpha[F] + tau * d, 0.0, C[F])
     delta = new - alpha[F]
     if abs(float(yF @ delta)) > 1e-12 * max(1.0, float(np.sum(C[F]))):
-        return False  # a step from a nearly singular system: rounding would move y'a; SMO goes on instead
-    alpha[F] = new
-    if active is not None and acc is not None:
-        G[active] += y[active] * kernel.combo(idx[F], delta * yF, idx[active])
-        acc[0][F] += delta * yF
-        acc[1][F] = True
-    else:
-        G += y * kernel.combo(idx[F], delta * yF, None if all_rows else idx)
-    return full
+        return None  # a step from a nearly singular system: rounding would move y'a; SMO goes on instead
+    return full, new
 
 
 def _direct_step(
@@ -212,23 +257,30 @@ def finish(
     Newton steps each followed by a short SMO run, and an unlimited SMO run at ``eps`` as the last word
     (see :func:`refit_without`). Arrays changed in place; returns the SMO iterations.
 
-    With ``near``, everything before the last run works on the active rows A (``near`` plus the free rows)
-    and keeps only their gradient up to date, accumulating each row's change of y a; the last run brings
-    the other rows' gradient up to date once (O(changed rows x n), instead of once per step) and goes on
-    over all rows until every row meets the stopping rule (see ``smo._smo``). Without ``near`` every row is
+    With ``near``, the work is done on the active rows A (``near`` plus the free rows), keeping only their
+    gradient up to date and accumulating each row's change of y a. Then the other rows' gradient is brought
+    up to date once (O(changed rows x n), instead of once per step; :func:`holdfast.learners.smo.regrow`):
+    if every row meets the stopping rule, that is the answer; otherwise the rows that violate it with an
+    active row join A and the rounds of Newton steps go on over the larger set (up to ``GROW_ROUNDS``
+    times; plain SMO alone needed 20,000+ pair updates after one row joined). The last run goes on over
+    all rows until every row meets the stopping rule (see ``smo._smo``). Without ``near`` every row is
     active throughout."""
     active = None if near is None else np.flatnonzero(near | ((alpha > 0) & (alpha < C)))
     acc = None if active is None else (np.zeros(len(idx)), np.zeros(len(idx), dtype=np.bool_))
-    its = solve(kernel, idx, y, C, alpha, G, max(eps, LOOSE_EPS), QD, active=active, acc=acc, defer=True)
-    short = SHORT_ITERATIONS
-    for _ in range(POLISH_ROUNDS):
-        for _ in range(8):
-            if polish(kernel, idx, y, C, alpha, G, all_rows, face, active, acc):
+    its = 0
+    for _ in range(GROW_ROUNDS):
+        its += solve(kernel, idx, y, C, alpha, G, max(eps, LOOSE_EPS), QD, active=active, acc=acc, defer=True)
+        for _ in range(POLISH_ROUNDS):
+            polish(kernel, idx, y, C, alpha, G, all_rows, face, active, acc)
+            more = solve(kernel, idx, y, C, alpha, G, eps, QD, SHORT_ITERATIONS, active, acc, True)
+            its += more
+            if more < SHORT_ITERATIONS:
                 break
-        more = solve(kernel, idx, y, C, alpha, G, eps, QD, max_iter=short, active=active, acc=acc, defer=True)
-        its += more
-        if more < short:
+        if active is None or acc is None or len(active) == len(idx):
             break
+        active = regrow(kernel, idx, y, C, alpha, G, eps, active, acc)
+        if len(active) == 0:  # every row meets the stopping rule, with every row's gradient up to date
+            return its
     return its + solve(kernel, idx, y, C, alpha, G, eps, QD, active=active, acc=acc)
 
 
