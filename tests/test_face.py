@@ -73,3 +73,26 @@ def test_no_face_inverse_for_a_singular_face():
     alpha = np.zeros(40)
     alpha[[3, 5, 8, 11]] = 0.5  # four free rows, not necessarily optimal: the inverse test is about Q
     assert FaceInverse.build(kernel, np.arange(40), y, alpha, np.ones(40)) is None
+
+
+def test_face_combo_equals_the_kernel_sum(solved):
+    """``FaceInverse.combo`` (the F0 x F0 part from the stored block, the rest from kernel rows) equals
+    ``sum_k coef_k K(x_rows_k, x_cols)`` taken straight from the kernel matrix, for row and column sets
+    inside F0, partly outside it, and wholly outside it."""
+    kernel, ypm, C, alpha, _ = solved
+    m = len(ypm)
+    face = FaceInverse.build(kernel, np.arange(m), ypm, alpha, C)
+    assert face is not None
+    F0 = face.rows
+    others = np.setdiff1d(np.arange(m), F0)
+    rng = np.random.default_rng(3)
+    sets = {
+        "inside": np.sort(rng.choice(F0, len(F0) // 2, replace=False)),
+        "mixed": np.sort(np.concatenate([F0[::3], others[::40]])),
+        "outside": others[::25],
+    }
+    for rows in sets.values():
+        coef = rng.standard_normal(len(rows))
+        for cols in (*sets.values(), F0, np.arange(m)):
+            expect = coef @ kernel.K[np.ix_(rows, cols)]
+            assert np.allclose(face.combo(kernel, np.arange(m), rows, coef, cols), expect, atol=1e-12)

@@ -39,12 +39,13 @@ INVERSE_CHECK = 1e-6
 
 @dataclass
 class FaceInverse:
-    """The inverse H of ``Q_F0F0`` over the full solution's free rows F0 (``rows``, positions), and each
-    position's place in F0 (``where``, -1 outside)."""
+    """The inverse H of ``Q_F0F0`` over the full solution's free rows F0 (``rows``, positions), each
+    position's place in F0 (``where``, -1 outside), and the kernel block ``K_F0F0`` itself (``K``)."""
 
     rows: np.ndarray
     where: np.ndarray
     H: np.ndarray
+    K: np.ndarray
 
     @classmethod
     def build(
@@ -55,7 +56,8 @@ class FaceInverse:
         F0 = np.flatnonzero((alpha > 0) & (alpha < C))
         if len(F0) == 0 or len(F0) > MAX_FACE_ROWS:
             return None
-        Q = kernel.rows(idx[F0], idx[F0]) * np.outer(y[F0], y[F0])
+        KF = kernel.rows(idx[F0], idx[F0])
+        Q = KF * np.outer(y[F0], y[F0])
         try:
             H = np.linalg.inv(Q)
         except np.linalg.LinAlgError:
@@ -64,7 +66,25 @@ class FaceInverse:
             return None
         where = np.full(len(idx), -1, dtype=np.int64)
         where[F0] = np.arange(len(F0))
-        return cls(rows=F0, where=where, H=H)
+        return cls(rows=F0, where=where, H=H, K=KF)
+
+    def combo(
+        self, kernel: Kernel, idx: np.ndarray, rows: np.ndarray, coef: np.ndarray, cols: np.ndarray
+    ) -> np.ndarray:
+        """``sum_k coef_k K(x_rows_k, x_cols)`` (positions), the part inside F0 x F0 read from the stored
+        block ``K`` (a dense product, not a gather from kernel rows), the rest from ``kernel``."""
+        wr, wc = self.where[rows], self.where[cols]
+        ir, ic = wr >= 0, wc >= 0
+        out = np.zeros(len(cols))
+        if ir.any() and ic.any():
+            v = np.zeros(len(self.rows))
+            v[wr[ir]] = coef[ir]
+            out[ic] = (self.K @ v)[wc[ic]]  # |F0|^2, dense: cheaper than gathering the sub-block
+        if not ir.all():
+            out += kernel.combo(idx[rows[~ir]], coef[~ir], idx[cols])
+        if ir.any() and not ic.all():
+            out[~ic] += kernel.combo(idx[rows[ir]], coef[ir], idx[cols[~ic]])
+        return out
 
     def step(
         self, kernel: Kernel, idx: np.ndarray, y: np.ndarray, F: np.ndarray, G: np.ndarray

@@ -274,6 +274,43 @@ def _grown(act, y, C, alpha, G, eps):
     return np.flatnonzero(inside)
 
 
+#: SMO pair updates between two looks at every active row for candidates (``_candidates``).
+CANDIDATE_PERIOD = 100
+
+
+@njit(nogil=True, cache=True)
+def _candidates(act, y, C, alpha, G):
+    """The rows of ``act`` that can be in a violating pair at the current alpha: libsvm's shrinking test
+    (Chang & Lin 2011, "LIBSVM", section 5.1) drops a row at a bound whose -y G lies beyond the other side's
+    extreme (m(a) for rows that may only go down, M(a) for rows that may only go up)."""
+    gmax1 = -np.inf  # max -y G over I_up
+    gmax2 = -np.inf  # max y G over I_low (= -M(a))
+    for t in act:
+        if y[t] > 0:
+            if alpha[t] < C[t]:
+                gmax1 = max(gmax1, -G[t])
+            if alpha[t] > 0:
+                gmax2 = max(gmax2, G[t])
+        else:
+            if alpha[t] < C[t]:
+                gmax2 = max(gmax2, -G[t])
+            if alpha[t] > 0:
+                gmax1 = max(gmax1, G[t])
+    keep = np.empty(act.shape[0], dtype=np.int64)
+    k = 0
+    for t in act:
+        if alpha[t] >= C[t]:
+            out = (-G[t] > gmax1) if y[t] > 0 else (-G[t] > gmax2)
+        elif alpha[t] <= 0:
+            out = (G[t] > gmax2) if y[t] > 0 else (G[t] > gmax1)
+        else:
+            out = False
+        if not out:
+            keep[k] = t
+            k += 1
+    return keep[:k]
+
+
 @njit(nogil=True, cache=True)
 def _regrow(
     K,
@@ -378,11 +415,18 @@ def _smo(
     owner = np.full(cache.shape[0], -1, dtype=np.int64)
     state = np.zeros(1, dtype=np.int64)
     it = 0
+    sel = _candidates(act, y, C, alpha, G)  # the rows selection looks at; act's gradient stays current
+    fresh = True
+    since = 0
     while it < max_iter:
+        if since >= CANDIDATE_PERIOD:
+            sel = _candidates(act, y, C, alpha, G)
+            fresh = True
+            since = 0
         # i: the most violating row in I_up (libsvm's select_working_set)
         gmax = -np.inf
         i = -1
-        for t in act:
+        for t in sel:
             if y[t] > 0:
                 if alpha[t] < C[t] and -G[t] >= gmax:
                     gmax = -G[t]
@@ -390,6 +434,11 @@ def _smo(
             elif alpha[t] > 0 and G[t] >= gmax:
                 gmax = G[t]
                 i = t
+        if i == -1 and not fresh:  # optimal over the candidates: look at every active row again
+            sel = _candidates(act, y, C, alpha, G)
+            fresh = True
+            since = 0
+            continue
         if i == -1:
             if shrunk and not defer:
                 _unshrink(
@@ -419,6 +468,9 @@ def _smo(
                     shrunk = False
                     break
                 shrunk = act.shape[0] < n
+                sel = _candidates(act, y, C, alpha, G)
+                fresh = True
+                since = 0
                 continue
             break
         Ki = _fetch(
@@ -428,7 +480,7 @@ def _smo(
         gmax2 = -np.inf
         j = -1
         obj_min = np.inf
-        for t in act:
+        for t in sel:
             if y[t] > 0:
                 if alpha[t] > 0:
                     gd = gmax + G[t]
@@ -449,6 +501,11 @@ def _smo(
                 if od <= obj_min:
                     j = t
                     obj_min = od
+        if (gmax + gmax2 < eps or j == -1) and not fresh:
+            sel = _candidates(act, y, C, alpha, G)
+            fresh = True
+            since = 0
+            continue
         if gmax + gmax2 < eps or j == -1:
             if shrunk and not defer:
                 _unshrink(
@@ -478,6 +535,9 @@ def _smo(
                     shrunk = False
                     break
                 shrunk = act.shape[0] < n
+                sel = _candidates(act, y, C, alpha, G)
+                fresh = True
+                since = 0
                 continue
             break
         it += 1
@@ -492,6 +552,8 @@ def _smo(
         dai, daj = pair_step(i, j, y, C, alpha, G, qc)
         for t in act:
             G[t] += y[t] * (Ki[t] * dai + Kj[t] * daj)
+        fresh = False
+        since += 1
         if shrunk:
             dacc[i] += dai
             dacc[j] += daj

@@ -134,7 +134,8 @@ def polish(
         dy = (new - alpha[F]) * y[F]
         alpha[F] = new
         moved[np.searchsorted(F0, F)] += dy
-        G[F0] += y[F0] * kernel.combo(idx[F], dy, idx[F0])
+        near_face = face.combo(kernel, idx, F, dy, F0) if face is not None else None
+        G[F0] += y[F0] * (near_face if near_face is not None else kernel.combo(idx[F], dy, idx[F0]))
         if full:
             break
     nz = np.flatnonzero(moved != 0.0)
