@@ -244,6 +244,10 @@ def main() -> None:
     parser.add_argument("--naive-rows", type=int, default=2000, help="rows of the fully timed naive case")
     parser.add_argument("--naive-sample", type=int, default=30)
     parser.add_argument("--flip-sample", type=int, default=40)
+    parser.add_argument(
+        "--large-sizes", default="", help="RBF sizes whose naive LOO is estimated from --large-naive-sample"
+    )
+    parser.add_argument("--large-naive-sample", type=int, default=3, help="timed SVC refits per large case")
     parser.add_argument("--linear-sizes", default="", help="sizes of linear-kernel cases (20 features)")
     parser.add_argument("--linear-naive-sample", type=int, default=3, help="timed SVC refits per linear case")
     parser.add_argument(
@@ -266,6 +270,8 @@ def main() -> None:
     cases = [] if args.scale_only else [(args.naive_rows, "base", "1", "0", str(args.flip_sample))]
     if not args.naive_only:
         cases += [(int(s), "base", "0", str(args.naive_sample), "0") for s in args.sizes.split(",") if s]
+        large = str(args.large_naive_sample)
+        cases += [(int(s), "base", "0", large, "0") for s in args.large_sizes.split(",") if s]
         side = ("imbalanced", "overlapping")
         cases += [(args.side_size, k, "0", str(args.naive_sample), "0") for k in side]
         sample = str(args.linear_naive_sample)
