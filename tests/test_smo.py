@@ -187,3 +187,62 @@ def test_regrow_brings_every_gradient_up_to_date():
     assert len(nxt) > len(active) and np.all(np.isin(active, nxt))  # the other rows were never looked at
     smo.solve(kern, idx, ypm, c, alpha, G, 1e-8)
     assert len(smo.regrow(kern, idx, ypm, c, alpha, G, 1e-8, np.arange(m), acc)) == 0
+
+
+@pytest.mark.parametrize("stored", [False, True])
+@pytest.mark.parametrize("stop_at", [None, 1, 2, 3])
+def test_newton_steps_keep_the_gradient_right(stored, stop_at, monkeypatch):
+    """However a run of Newton steps ends (a full step, a step cut at a bound, no step possible at the
+    first, second or third try), ``warm.polish`` leaves the gradient of every active row equal to one
+    computed afresh from alpha, with the kernel matrix and with kernel rows from X and stored rows (the
+    F0 block of the face inverse is then used); breast cancer, RBF (Wolberg, Street & Mangasarian 1995)."""
+    from holdfast.learners.face import FaceInverse
+
+    X, y = _two_class("cancer")
+    gamma = resolve_gamma("scale", X)
+    K = kernel_matrix(X, X, "rbf", gamma, 3, 0.0)
+    m = len(y)
+    ypm = np.where(y == 1, 1.0, -1.0)
+    c = np.full(m, 1.0)
+    idx = np.arange(m)
+    if stored:
+        keep = np.arange(0, m, 2)
+        wpos = np.full(m, -1, dtype=np.int64)
+        wpos[keep] = np.arange(len(keep))
+        kern = smo.Kernel(X=X, kind="rbf", gamma=gamma, KW=K[keep], wpos=wpos)
+    else:
+        kern = smo.Kernel(K=K)
+    alpha, grad, _, _ = smo.fit_dual(kern, idx, ypm, c, 1e-10)
+    face = FaceInverse.build(kern, idx, ypm, alpha, c)
+    assert face is not None
+    real = warm._newton_step
+    calls = []
+
+    def step(*args):
+        calls.append(1)
+        return None if stop_at is not None and len(calls) >= stop_at else real(*args)
+
+    monkeypatch.setattr(warm, "_newton_step", step)
+    checked = 0
+    for row in np.flatnonzero(alpha > 0)[::15]:
+        a, g, cc = alpha.copy(), grad.copy(), c.copy()
+        warm.seed_without(kern, idx, ypm, cc, a, g, int(row), True)
+        near = ypm * (ypm * (g + 1.0)) < 1.5
+        active = np.flatnonzero(near | ((a > 0) & (a < cc)))
+        acc = (np.zeros(m), np.zeros(m, dtype=np.bool_))
+        smo.solve(kern, idx, ypm, cc, a, g, 1e-1, active=active, acc=acc, defer=True)
+        before = a.copy()
+        calls.clear()
+        warm.polish(kern, idx, ypm, cc, a, g, True, face, active, acc)
+        fresh = smo.gradient(kern, idx, ypm, a)
+        assert np.allclose(g[active], fresh[active], atol=1e-9)
+        checked += int(not np.array_equal(a, before))
+        # without active rows: every row's gradient
+        a, g, cc = alpha.copy(), grad.copy(), c.copy()
+        warm.seed_without(kern, idx, ypm, cc, a, g, int(row), True)
+        smo.solve(kern, idx, ypm, cc, a, g, 1e-1)
+        calls.clear()
+        warm.polish(kern, idx, ypm, cc, a, g, True, face)
+        assert np.allclose(g, smo.gradient(kern, idx, ypm, a), atol=1e-9)
+    if stop_at != 1:
+        assert checked > 0  # steps were taken

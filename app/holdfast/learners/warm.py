@@ -134,13 +134,15 @@ def polish(
     full = False
     steps = 0
     last: tuple[np.ndarray, np.ndarray] | None = None  # the last step (F, change of y a), not yet in G[F0]
+    f0_current = False  # G[F0] already holds some step
     for _ in range(max_steps):
         if last is not None:
             G[F0] += y[F0] * _face_sum(kernel, idx, face, *last, F0)
+            last = None
+            f0_current = True
         F = np.flatnonzero((alpha > 0) & (alpha < C))
         d = _newton_step(kernel, idx, y, C, alpha, G, F, face)
         if d is None:
-            last = None
             break
         full, new = d
         dy = (new - alpha[F]) * y[F]
@@ -152,7 +154,7 @@ def polish(
             break
     if steps == 0:
         return False
-    if steps == 1:  # one step over F0: one update of every row's gradient
+    if not f0_current:  # a single step over F0, in no gradient yet: one update of every row's gradient
         rest = F0[:0]
         rows, dy = F0, moved
     else:
