@@ -240,7 +240,7 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--case", nargs=6, help=argparse.SUPPRESS)
     parser.add_argument("--sizes", default="5000,10000")
-    parser.add_argument("--side-size", type=int, default=5000, help="rows of the imbalanced/overlapping sets")
+    parser.add_argument("--side-size", type=int, default=5000, help="rows of the imbalanced/overlapping sets (0: none)")
     parser.add_argument("--naive-rows", type=int, default=2000, help="rows of the fully timed naive case")
     parser.add_argument("--naive-sample", type=int, default=30)
     parser.add_argument("--flip-sample", type=int, default=40)
@@ -273,7 +273,7 @@ def main() -> None:
         large = str(args.large_naive_sample)
         cases += [(int(s), "base", "0", large, "0") for s in args.large_sizes.split(",") if s]
         side = ("imbalanced", "overlapping")
-        cases += [(args.side_size, k, "0", str(args.naive_sample), "0") for k in side]
+        cases += [(args.side_size, k, "0", str(args.naive_sample), "0") for k in side if args.side_size > 0]
         sample = str(args.linear_naive_sample)
         cases += [(int(s), "base-linear", "0", sample, "0") for s in args.linear_sizes.split(",") if s]
     print(
