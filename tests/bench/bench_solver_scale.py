@@ -240,7 +240,9 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--case", nargs=6, help=argparse.SUPPRESS)
     parser.add_argument("--sizes", default="5000,10000")
-    parser.add_argument("--side-size", type=int, default=5000, help="rows of the imbalanced/overlapping sets (0: none)")
+    parser.add_argument(
+        "--side-size", type=int, default=5000, help="rows of the imbalanced/overlapping sets (0: none)"
+    )
     parser.add_argument("--naive-rows", type=int, default=2000, help="rows of the fully timed naive case")
     parser.add_argument("--naive-sample", type=int, default=30)
     parser.add_argument("--flip-sample", type=int, default=40)
