@@ -279,36 +279,52 @@ CANDIDATE_PERIOD = 100
 
 
 @njit(nogil=True, cache=True)
+def _extremes(y, C, alpha, G, act):
+    """(Gmax1, Gmax2): max of -y_t G_t over I_up and of y_t G_t over I_low among ``act`` (libsvm's)."""
+    g1 = -np.inf
+    g2 = -np.inf
+    for t in act:
+        if y[t] > 0:
+            if alpha[t] < C[t]:
+                g1 = max(g1, -G[t])
+            if alpha[t] > 0:
+                g2 = max(g2, G[t])
+        else:
+            if alpha[t] > 0:
+                g1 = max(g1, G[t])
+            if alpha[t] < C[t]:
+                g2 = max(g2, -G[t])
+    return g1, g2
+
+
+@njit(nogil=True, cache=True)
+def _keep(y, C, alpha, G, act, g1, g2):
+    """The rows of ``act`` that libsvm's ``be_shrunk`` keeps (free rows, and rows at a bound that could
+    still join a violating pair); rows with C_t = 0 (taken out) never."""
+    out = np.empty(act.shape[0], dtype=np.int64)
+    k = 0
+    for t in act:
+        if C[t] <= 0:
+            continue
+        if alpha[t] >= C[t]:
+            drop = (-G[t] > g1) if y[t] > 0 else (-G[t] > g2)
+        elif alpha[t] <= 0:
+            drop = (G[t] > g2) if y[t] > 0 else (G[t] > g1)
+        else:
+            drop = False
+        if not drop:
+            out[k] = t
+            k += 1
+    return out[:k]
+
+
+@njit(nogil=True, cache=True)
 def _candidates(act, y, C, alpha, G):
     """The rows of ``act`` that can be in a violating pair at the current alpha: libsvm's shrinking test
     (Chang & Lin 2011, "LIBSVM", section 5.1) drops a row at a bound whose -y G lies beyond the other side's
     extreme (m(a) for rows that may only go down, M(a) for rows that may only go up)."""
-    gmax1 = -np.inf  # max -y G over I_up
-    gmax2 = -np.inf  # max y G over I_low (= -M(a))
-    for t in act:
-        if y[t] > 0:
-            if alpha[t] < C[t]:
-                gmax1 = max(gmax1, -G[t])
-            if alpha[t] > 0:
-                gmax2 = max(gmax2, G[t])
-        else:
-            if alpha[t] < C[t]:
-                gmax2 = max(gmax2, -G[t])
-            if alpha[t] > 0:
-                gmax1 = max(gmax1, G[t])
-    keep = np.empty(act.shape[0], dtype=np.int64)
-    k = 0
-    for t in act:
-        if alpha[t] >= C[t]:
-            out = (-G[t] > gmax1) if y[t] > 0 else (-G[t] > gmax2)
-        elif alpha[t] <= 0:
-            out = (G[t] > gmax2) if y[t] > 0 else (G[t] > gmax1)
-        else:
-            out = False
-        if not out:
-            keep[k] = t
-            k += 1
-    return keep[:k]
+    g1, g2 = _extremes(y, C, alpha, G, act)
+    return _keep(y, C, alpha, G, act, g1, g2)
 
 
 @njit(nogil=True, cache=True)

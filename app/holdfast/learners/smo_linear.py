@@ -29,7 +29,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-from holdfast.learners.smo import TAU, Kernel, max_iterations, pair_step, rho
+from holdfast.learners.smo import TAU, Kernel, _extremes, _keep, max_iterations, pair_step, rho
 from holdfast.learners.warm import seed_without
 
 
@@ -63,46 +63,6 @@ def _refresh(X, y, alpha, w, G):
                 w[f] += c * X[t, f]
     for t in range(X.shape[0]):
         G[t] = y[t] * _dot(X, t, w) - 1.0
-
-
-@njit(nogil=True, cache=True)
-def _extremes(y, C, alpha, G, act):
-    """(Gmax1, Gmax2): max of -y_t G_t over I_up and of y_t G_t over I_low among ``act`` (libsvm's)."""
-    g1 = -np.inf
-    g2 = -np.inf
-    for t in act:
-        if y[t] > 0:
-            if alpha[t] < C[t]:
-                g1 = max(g1, -G[t])
-            if alpha[t] > 0:
-                g2 = max(g2, G[t])
-        else:
-            if alpha[t] > 0:
-                g1 = max(g1, G[t])
-            if alpha[t] < C[t]:
-                g2 = max(g2, -G[t])
-    return g1, g2
-
-
-@njit(nogil=True, cache=True)
-def _keep(y, C, alpha, G, act, g1, g2):
-    """The rows of ``act`` that libsvm's ``be_shrunk`` keeps (free rows, and rows at a bound that could
-    still join a violating pair); rows with C_t = 0 (taken out) never."""
-    out = np.empty(act.shape[0], dtype=np.int64)
-    k = 0
-    for t in act:
-        if C[t] <= 0:
-            continue
-        if alpha[t] >= C[t]:
-            drop = (-G[t] > g1) if y[t] > 0 else (-G[t] > g2)
-        elif alpha[t] <= 0:
-            drop = (G[t] > g2) if y[t] > 0 else (G[t] > g1)
-        else:
-            drop = False
-        if not drop:
-            out[k] = t
-            k += 1
-    return out[:k]
 
 
 @njit(nogil=True, cache=True)
