@@ -737,6 +737,12 @@ class Kernel:
         return out
 
 
+def _is_whole_matrix(kernel: Kernel, idx: np.ndarray) -> bool:
+    """True when the kernel matrix is precomputed and ``idx`` is every training row in order (a row of K
+    is then used as it is)."""
+    return kernel.precomputed and len(idx) == kernel.K.shape[0] and bool(np.all(idx == np.arange(len(idx))))
+
+
 def _is_all_rows(kernel: Kernel, idx: np.ndarray) -> bool:
     """True when ``kernel`` stores rows (``KW``) and ``idx`` is every training row in order."""
     n = kernel.wpos.shape[0]
@@ -764,7 +770,7 @@ def solve(
     end either way). Returns the number of pair updates (``max_iter`` of them at most: libsvm's cap).
     """
     idx = np.ascontiguousarray(idx, dtype=np.int64)
-    ident = kernel.precomputed and len(idx) == kernel.K.shape[0] and bool(np.all(idx == np.arange(len(idx))))
+    ident = _is_whole_matrix(kernel, idx)
     if QD is None:
         QD = kernel.diag(idx)
     ncache = kernel.cache_rows if not kernel.precomputed else min(kernel.cache_rows, 64)
@@ -813,7 +819,7 @@ def regrow(
     that violate the stopping rule with one of them, every row when only outside rows violate), or an
     empty array when every row meets the stopping rule ``m(a) - M(a) < eps``."""
     idx = np.ascontiguousarray(idx, dtype=np.int64)
-    ident = kernel.precomputed and len(idx) == kernel.K.shape[0] and bool(np.all(idx == np.arange(len(idx))))
+    ident = _is_whole_matrix(kernel, idx)
     ncache = kernel.cache_rows if not kernel.precomputed else min(kernel.cache_rows, 64)
     return np.asarray(
         _regrow(
