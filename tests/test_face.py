@@ -15,6 +15,7 @@ import pytest
 from sklearn.datasets import load_breast_cancer
 from sklearn.preprocessing import StandardScaler
 
+from holdfast.learners import face as face_module
 from holdfast.learners import smo
 from holdfast.learners.face import FaceInverse
 from holdfast.learners.kernels import kernel_matrix, resolve_gamma
@@ -96,3 +97,32 @@ def test_face_combo_equals_the_kernel_sum(solved):
         for cols in (*sets.values(), F0, np.arange(m)):
             expect = coef @ kernel.K[np.ix_(rows, cols)]
             assert np.allclose(face.combo(kernel, np.arange(m), rows, coef, cols), expect, atol=1e-12)
+
+
+def test_face_spread_equals_the_kernel_sum(solved, monkeypatch):
+    """``FaceInverse.spread`` (the F0 x N part from the stored block ``KN``, the rest from kernel rows)
+    equals ``sum_k coef_k K(x_rows_k, x_cols)`` taken straight from the kernel matrix, for rows inside F0,
+    partly and wholly outside it, and columns inside N, partly and wholly outside it; without ``KN`` (over
+    its byte limit) it is ``combo``."""
+    kernel, ypm, C, alpha, G = solved
+    m = len(ypm)
+    near = np.flatnonzero((G + 1.0) < 1.3)  # some rows, holding F0 and more
+    face = FaceInverse.build(kernel, np.arange(m), ypm, alpha, C, near)
+    assert face is not None and face.KN is not None and face.KN.shape == (len(face.rows), len(near))
+    F0 = face.rows
+    assert np.all(np.isin(F0, near)) and len(near) > 2 * len(F0)
+    others = np.setdiff1d(np.arange(m), F0)
+    outside_n = np.setdiff1d(np.arange(m), near)
+    rng = np.random.default_rng(4)
+    row_sets = [F0, np.sort(np.concatenate([F0[::2], others[::30]])), others[::25]]
+    col_sets = [near, np.sort(np.concatenate([near[::3], outside_n[::7]])), outside_n[::5], np.arange(m)]
+    for rows in row_sets:
+        coef = rng.standard_normal(len(rows))
+        for cols in col_sets:
+            expect = coef @ kernel.K[np.ix_(rows, cols)]
+            assert np.allclose(face.spread(kernel, np.arange(m), rows, coef, cols), expect, atol=1e-12)
+    monkeypatch.setattr(face_module, "NEAR_BLOCK_MAX_BYTES", len(F0) * len(near) * 8 - 1)
+    small = FaceInverse.build(kernel, np.arange(m), ypm, alpha, C, near)
+    assert small is not None and small.KN is None
+    coef = rng.standard_normal(len(F0))
+    assert np.allclose(small.spread(kernel, np.arange(m), F0, coef, near), coef @ kernel.K[np.ix_(F0, near)])

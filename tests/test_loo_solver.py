@@ -19,6 +19,8 @@ from sklearn.preprocessing import StandardScaler
 from sklearn.svm import SVC
 
 from holdfast.engine.loo import exact_loo
+from holdfast.learners import smo, warm
+from holdfast.learners.base import ESSENTIAL_CHANGE
 from holdfast.learners.svm import SVMLearner
 
 
@@ -155,3 +157,36 @@ def test_linear_kernel_above_the_precompute_limit(name):
     assert int((result.loo_code != reference).sum()) == 0
     rows = np.flatnonzero(model.support)[::5]
     assert np.array_equal(result.flip_count[rows], _flips(X, y, learner, model.prediction, rows))
+
+
+@pytest.mark.parametrize("precompute", [True, False])
+@pytest.mark.parametrize("ties", ["libsvm", "optimum"])
+def test_certified_refits_tell_what_fully_updated_ones_tell(precompute, ties, monkeypatch):
+    """Refits that leave rows far from the margin with the full model's gradient under a certificate
+    (``smo.certify``) give the same LOO prediction, flipped rows, LOO margin and essential flag as the same
+    refits with every row updated, on breast cancer (all 569 rows, RBF), with the kernel matrix and with
+    kernel rows from X; and the certificate is actually given (for a fifth of the refits here)."""
+    X, y = load_breast_cancer(return_X_y=True)
+    X = StandardScaler().fit_transform(X)
+    learner = SVMLearner(kernel="rbf", C=1.0, ties=ties, precompute_max_rows=10_000 if precompute else 10)
+    model = learner.fit(X, y)
+    problem = learner.refit_problem()
+    assert problem.alpha is not None and (problem.K is None) != precompute
+    given = []
+
+    def counted(*args):
+        radius = smo.certify(*args)
+        given.append(radius >= 0)
+        return radius
+
+    monkeypatch.setattr(warm, "certify", counted)
+    rows = np.flatnonzero(model.support)
+    with_cert = [problem.refit_without(int(r)) for r in rows]
+    problem.certify = False
+    without = [problem.refit_without(int(r)) for r in rows]
+    assert sum(given) >= 10  # 22 of 119 refits here; most at 20,000 rows (bench_solver_scale.py)
+    for a, b in zip(with_cert, without, strict=True):
+        assert a.loo_code == b.loo_code and np.array_equal(a.flipped, b.flipped)
+        assert abs(a.loo_margin - b.loo_margin) < 1e-9
+        assert (a.max_change > ESSENTIAL_CHANGE) == (b.max_change > ESSENTIAL_CHANGE)
+        assert a.max_change <= b.max_change + 1e-12  # taken over fewer rows, never more

@@ -246,3 +246,49 @@ def test_newton_steps_keep_the_gradient_right(stored, stop_at, monkeypatch):
         assert np.allclose(g, smo.gradient(kern, idx, ypm, a), atol=1e-9)
     if stop_at != 1:
         assert checked > 0  # steps were taken
+
+
+@pytest.mark.parametrize("data", ["cancer", "digits"])
+def test_certified_refit_leaves_nothing_a_full_update_would_change(data):
+    """A warm refit whose last update of the rows outside the active set is skipped under the certificate
+    (``smo.certify``, ``warm.Certificate``): the solution is the one of the same refit without the
+    certificate; every left row's true gradient lies within ``radius sqrt(K(x, x))`` of the full model's
+    (Cauchy-Schwarz), its decision value's sign and the side of the margin it is on are the true ones, and
+    ``complete`` brings every gradient up to date with the stopping rule (Chang & Lin 2011, eq. 4.13) met.
+    The true values are computed afresh from alpha."""
+    X, y = _two_class(data)
+    K = kernel_matrix(X, X, "rbf", resolve_gamma("scale", X), 3, 0.0)
+    m = len(y)
+    ypm = np.where(y == 1, 1.0, -1.0)
+    c = np.full(m, 1.0)
+    kern = smo.Kernel(K=K)
+    idx = np.arange(m)
+    alpha0, grad0, rho0, _ = smo.fit_dual(kern, idx, ypm, c, 1e-10)
+    near = ypm * (ypm * (grad0 + 1.0) - rho0) < 1.2
+    zone = 1e-4
+    certified = 0
+    for row in np.flatnonzero(alpha0 > 0)[::5]:
+        a, g, cc = alpha0.copy(), grad0.copy(), c.copy()
+        cert = warm.Certificate(alpha0, grad0, zone)
+        rho, _ = warm.refit_without(kern, idx, ypm, cc, a, g, int(row), 1e-10, True, near=near, cert=cert)
+        a2, g2, c2 = alpha0.copy(), grad0.copy(), c.copy()
+        rho2, _ = warm.refit_without(kern, idx, ypm, c2, a2, g2, int(row), 1e-10, True, near=near)
+        assert np.array_equal(a, a2) and rho == rho2  # the same work on the active rows
+        fresh = smo.gradient(kern, idx, ypm, a)
+        if cert.stale is None:
+            assert np.allclose(g, fresh, atol=1e-8)
+            continue
+        certified += 1
+        stale = cert.stale
+        assert not stale[row] and stale.any()
+        assert np.allclose(g[~stale], fresh[~stale], atol=1e-8)
+        assert np.array_equal(g[stale], grad0[stale])
+        assert np.all(np.abs(fresh[stale] - g[stale]) <= cert.radius * np.sqrt(np.diag(K)[stale]))
+        dec, true = ypm * (g + 1.0) - rho, ypm * (fresh + 1.0) - rho
+        assert np.array_equal(dec > 0, true > 0)
+        assert np.all(np.abs(true[stale]) > zone) and np.all(np.abs(ypm * true - 1.0)[stale] > zone)
+        assert np.array_equal((ypm * dec > 1.0)[stale], (ypm * true > 1.0)[stale])
+        cert.complete(kern, idx, ypm, cc, a, g, 1e-10, kern.diag(idx))
+        assert cert.stale is None and np.allclose(g, fresh, atol=1e-8)
+        assert len(smo.regrow(kern, idx, ypm, cc, a, g, 1e-10, idx, (np.zeros(m), np.zeros(m, bool)))) == 0
+    assert certified >= 3

@@ -20,7 +20,7 @@ import numpy as np
 
 from holdfast.engine.cache import RefitStore
 from holdfast.engine.parallel import run_refits
-from holdfast.learners.base import FittedModel, RefitOutcome, RefitProblem
+from holdfast.learners.base import ESSENTIAL_CHANGE, FittedModel, RefitOutcome, RefitProblem
 
 #: progress(done, total, eta_seconds or None)
 Progress = Callable[[int, int, float | None], None]
@@ -66,7 +66,7 @@ def exact_loo(
     store: RefitStore | None = None,
     progress: Progress | None = None,
     should_cancel: Callable[[], bool] | None = None,
-    essential_tol: float = 1e-4,
+    essential_tol: float = ESSENTIAL_CHANGE,
     priority: np.ndarray | None = None,
     on_update: Update | None = None,
 ) -> LooResult:
@@ -124,7 +124,7 @@ def exact_loo(
 
 
 def assemble_loo(
-    model: FittedModel, done: Mapping[int, RefitOutcome], *, essential_tol: float = 1e-4
+    model: FittedModel, done: Mapping[int, RefitOutcome], *, essential_tol: float = ESSENTIAL_CHANGE
 ) -> tuple[LooResult, np.ndarray]:
     """The LOO result from the refits in ``done``, and the mask of candidates still without a refit.
 

@@ -45,13 +45,20 @@ def signed_margins(decision: np.ndarray, y: np.ndarray) -> np.ndarray:
     return own - other
 
 
+#: A refit whose decision values move by more than this somewhere changes the model (the row is
+#: "essential"); holdfast's own threshold.
+ESSENTIAL_CHANGE = 1e-4
+
+
 @dataclass
 class RefitOutcome:
     """What one refit without one row tells about that row.
 
     ``row`` is the left-out training row (0-based among training rows); ``loo_code`` its predicted class
     code under the refit; ``flipped`` the other training rows whose predicted class changed;
-    ``max_change`` the largest absolute change of a training decision value; ``loo_margin`` the LOO
+    ``max_change`` the largest absolute change of a training decision value (of the rows the refit brought
+    up to date, see :func:`refit_outcome`; always more than ``ESSENTIAL_CHANGE`` when any row moved that
+    far); ``loo_margin`` the LOO
     decision value of the left-out row signed by its label, y * f_{-i}(x_i) (own minus best other class
     for more than two classes; NaN when the refit has no decision value for every class).
     """
@@ -89,15 +96,19 @@ def refit_outcome(
     y: np.ndarray,
     full_prediction: np.ndarray,
     full_decision: np.ndarray,
+    stale: np.ndarray | None = None,
 ) -> RefitOutcome:
     """What a refit without ``row`` tells, from its predicted codes ``pred`` and decision values ``dec`` for
-    every training row (``dec`` None when the refit has no decision value for every class)."""
+    every training row (``dec`` None when the refit has no decision value for every class). ``stale``:
+    rows whose sign is certified but whose decision value was not brought up to date (an SVM refit's
+    rows far from the margin); ``max_change`` is then the largest change among the other rows."""
     changed = pred != full_prediction
     changed[row] = False
     if dec is None:
         max_change, loo_margin = float("inf"), float("nan")
     else:
-        max_change = float(np.max(np.abs(dec - full_decision)))
+        moved = np.abs(dec - full_decision)
+        max_change = float(np.max(moved if stale is None else moved[~stale]))
         loo_margin = float(signed_margins(dec[row : row + 1], y[row : row + 1])[0])
     return RefitOutcome(
         row=row,

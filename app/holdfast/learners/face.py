@@ -35,24 +35,41 @@ MAX_CHANGED = 400
 MAX_STEP = 1e8
 #: Largest |Q H - I| entry accepted for the stored inverse (else none is kept).
 INVERSE_CHECK = 1e-6
+#: Largest kernel block ``K(F0, N)`` kept for gradient updates after Newton steps (bytes).
+NEAR_BLOCK_MAX_BYTES = 256 * 1024**2
 
 
 @dataclass
 class FaceInverse:
     """The inverse H of ``Q_F0F0`` over the full solution's free rows F0 (``rows``, positions), each
-    position's place in F0 (``where``, -1 outside), and the kernel block ``K_F0F0`` itself (``K``)."""
+    position's place in F0 (``where``, -1 outside), and the kernel block ``K_F0F0`` itself (``K``).
+
+    Optionally the block ``KN = K(F0, N)`` against the columns N (``near``: the rows a refit works on):
+    after Newton steps the active rows' gradient changes by a sum of F0's kernel rows over N, which is
+    then one dense product over a contiguous block instead of a gather from full kernel rows (whose
+    memory traffic, |F0| rows of m values each, was most of a refit's time at 20,000-50,000 rows).
+    """
 
     rows: np.ndarray
     where: np.ndarray
     H: np.ndarray
     K: np.ndarray
+    near_where: np.ndarray | None = None
+    KN: np.ndarray | None = None
 
     @classmethod
     def build(
-        cls, kernel: Kernel, idx: np.ndarray, y: np.ndarray, alpha: np.ndarray, C: np.ndarray
+        cls,
+        kernel: Kernel,
+        idx: np.ndarray,
+        y: np.ndarray,
+        alpha: np.ndarray,
+        C: np.ndarray,
+        near: np.ndarray | None = None,
     ) -> FaceInverse | None:
         """From a solution; None when F0 is empty, too large, or ``Q_F0F0`` is too close to singular for
-        its inverse to pass ``INVERSE_CHECK``."""
+        its inverse to pass ``INVERSE_CHECK``. ``near``: positions N for ``KN`` (kept when it takes at
+        most ``NEAR_BLOCK_MAX_BYTES``)."""
         F0 = np.flatnonzero((alpha > 0) & (alpha < C))
         if len(F0) == 0 or len(F0) > MAX_FACE_ROWS:
             return None
@@ -66,7 +83,12 @@ class FaceInverse:
             return None
         where = np.full(len(idx), -1, dtype=np.int64)
         where[F0] = np.arange(len(F0))
-        return cls(rows=F0, where=where, H=H, K=KF)
+        face = cls(rows=F0, where=where, H=H, K=KF)
+        if near is not None and len(near) > 0 and len(F0) * len(near) * 8 <= NEAR_BLOCK_MAX_BYTES:
+            face.near_where = np.full(len(idx), -1, dtype=np.int64)
+            face.near_where[near] = np.arange(len(near))
+            face.KN = kernel.rows(idx[F0], idx[near])
+        return face
 
     def combo(
         self, kernel: Kernel, idx: np.ndarray, rows: np.ndarray, coef: np.ndarray, cols: np.ndarray
@@ -80,6 +102,26 @@ class FaceInverse:
             v = np.zeros(len(self.rows))
             v[wr[ir]] = coef[ir]
             out[ic] = (self.K @ v)[wc[ic]]  # |F0|^2, dense: cheaper than gathering the sub-block
+        if not ir.all():
+            out += kernel.combo(idx[rows[~ir]], coef[~ir], idx[cols])
+        if ir.any() and not ic.all():
+            out[~ic] += kernel.combo(idx[rows[ir]], coef[ir], idx[cols[~ic]])
+        return out
+
+    def spread(
+        self, kernel: Kernel, idx: np.ndarray, rows: np.ndarray, coef: np.ndarray, cols: np.ndarray
+    ) -> np.ndarray:
+        """:meth:`combo` for many columns: the part inside F0 x N from ``KN`` (one dense product over
+        every column of N), the rest from ``kernel``; :meth:`combo` when there is no ``KN``."""
+        if self.KN is None or self.near_where is None:
+            return self.combo(kernel, idx, rows, coef, cols)
+        wr, wc = self.where[rows], self.near_where[cols]
+        ir, ic = wr >= 0, wc >= 0
+        out = np.zeros(len(cols))
+        if ir.any() and ic.any():
+            v = np.zeros(len(self.rows))
+            v[wr[ir]] = coef[ir]
+            out[ic] = (v @ self.KN)[wc[ic]]
         if not ir.all():
             out += kernel.combo(idx[rows[~ir]], coef[~ir], idx[cols])
         if ir.any() and not ic.all():

@@ -383,6 +383,57 @@ def _regrow(
 
 
 @njit(nogil=True, cache=True)
+def _certify(y, C, alpha, G, alpha0, G0, QD, act, eps, zone):
+    """The radius of the certificate of :func:`certify`, or -1.0 when it cannot be given."""
+    n = y.shape[0]
+    inside = np.zeros(n, dtype=np.bool_)
+    for t in act:
+        inside[t] = True
+    for t in range(n):
+        if not inside[t] and alpha[t] != alpha0[t]:
+            return -1.0
+    w2 = 0.0  # ||w - w0||^2 = (a - a0)'Q(a - a0) = sum_t (a_t - a0_t)(G_t - G0_t), over the active rows
+    mass = 0.0
+    for t in act:
+        d = alpha[t] - alpha0[t]
+        if d != 0.0:
+            w2 += d * (G[t] - G0[t])
+            mass += abs(d)
+    r = math.sqrt(max(w2, 0.0) + 1e-10 * mass) + 1e-12
+    m_act = -np.inf
+    big_m_act = np.inf
+    nfree = 0
+    sfree = 0.0
+    for t in act:
+        if C[t] <= 0:
+            continue
+        v = -y[t] * G[t]
+        if (y[t] > 0 and alpha[t] < C[t]) or (y[t] < 0 and alpha[t] > 0):
+            m_act = max(m_act, v)
+        if (y[t] > 0 and alpha[t] > 0) or (y[t] < 0 and alpha[t] < C[t]):
+            big_m_act = min(big_m_act, v)
+        if 0 < alpha[t] < C[t]:
+            nfree += 1
+            sfree += y[t] * G[t]
+    if nfree == 0 or not m_act - big_m_act < eps:
+        return -1.0
+    rho = sfree / nfree
+    for t in range(n):
+        if inside[t] or C[t] <= 0:
+            continue
+        rt = r * math.sqrt(max(QD[t], 0.0))
+        v = -y[t] * G0[t]
+        if ((y[t] > 0 and alpha[t] < C[t]) or (y[t] < 0 and alpha[t] > 0)) and v + rt > m_act:
+            return -1.0
+        if ((y[t] > 0 and alpha[t] > 0) or (y[t] < 0 and alpha[t] < C[t])) and v - rt < big_m_act:
+            return -1.0
+        f = y[t] * (G0[t] + 1.0) - rho
+        if abs(f) <= rt + zone or abs(y[t] * f - 1.0) <= rt + zone:
+            return -1.0
+    return r
+
+
+@njit(nogil=True, cache=True)
 def _smo(
     K,
     X,
@@ -843,6 +894,49 @@ def regrow(
             _is_all_rows(kernel, idx),
             acc[0],
             acc[1],
+        )
+    )
+
+
+def certify(
+    y: np.ndarray,
+    C: np.ndarray,
+    alpha: np.ndarray,
+    G: np.ndarray,
+    alpha0: np.ndarray,
+    G0: np.ndarray,
+    QD: np.ndarray,
+    eps: float,
+    active: np.ndarray,
+    zone: float,
+) -> float:
+    """Whether the rows outside ``active`` need their gradient at all: the radius r of a certificate that
+    settles everything asked of them, else -1.0 (then :func:`regrow` brings them up to date).
+
+    ``alpha0``/``G0`` is a solution the problem started from (the full model, in a refit) with its exact
+    gradient; the rows outside ``active`` still have their alpha from it, and the active rows' ``G`` is
+    current. The weight vector moved by ``dw`` with ``||dw||^2 = (a - a0)'Q(a - a0) = sum_t (a_t - a0_t)
+    (G_t - G0_t)`` (G = Qa - e), so by the Cauchy-Schwarz inequality an outside row's true gradient is within
+    ``r_t = ||dw|| sqrt(K(x_t, x_t))`` of ``G0_t`` (for the RBF kernel K(x, x) = 1). r is returned (with an
+    allowance for rounding) when, for every outside row, all values in that interval (a) meet libsvm's
+    stopping rule with the active rows (Chang & Lin 2011, eq. 4.13: they neither raise m(a) nor lower M(a),
+    and m(a) - M(a) < eps over the active rows), and (b) keep the decision value ``f = y (G + 1) - rho``
+    more than ``zone`` away from 0 and the margin ``y f`` more than ``zone`` away from 1 (rho from the free
+    rows, all active): the signs and the intercept's optimality are then those of the fully updated
+    gradient. Needs a free row (otherwise rho depends on the outside rows).
+    """
+    return float(
+        _certify(
+            y,
+            C,
+            alpha,
+            G,
+            alpha0,
+            G0,
+            QD,
+            np.ascontiguousarray(active, dtype=np.int64),
+            float(eps),
+            float(zone),
         )
     )
 

@@ -388,9 +388,11 @@ class SVMLearner:
         problem.solver = kernel
         problem.alpha, problem.grad, problem.c_row = alpha, grad, row_c.astype(np.float64)
         problem.qd = kernel.diag(np.arange(m))
-        problem.face = None if linear else FaceInverse.build(kernel, np.arange(m), ypm, alpha, problem.c_row)
         dec = ypm * (grad + 1.0) - rho
         problem.near = smo_linear.near_rows(ypm, dec) if linear else ypm * dec < 1.0 + WORKING_SET_SLACK
+        if not linear:
+            work = np.flatnonzero(problem.near | ((alpha > 0) & (alpha < problem.c_row)))
+            problem.face = FaceInverse.build(kernel, np.arange(m), ypm, alpha, problem.c_row, work)
         return DualModel.from_dual(alpha, ypm, rho, dec, self._args())
 
     def _fit_own_pairs(

@@ -29,7 +29,7 @@ import numpy as np
 from sklearn.svm import SVC
 
 from holdfast.learners import smo, smo_linear, warm
-from holdfast.learners.base import RefitOutcome, refit_outcome
+from holdfast.learners.base import ESSENTIAL_CHANGE, RefitOutcome, refit_outcome
 from holdfast.learners.face import FaceInverse
 from holdfast.learners.kernels import kernel_matrix, submatrix
 from holdfast.learners.pairs import PairState, ovr_from_ovo, refit_pairs, vote_codes
@@ -134,6 +134,9 @@ class SVMRefitProblem:
     #: how a decision value within the tie allowance of 0 gets its sign (``holdfast.learners.svm.TIES``,
     #: resolved): "libsvm" solves the whole refit again with libsvm; "optimum" keeps our refit's sign
     ties: str = "libsvm"
+    #: two classes, our solver: let a refit leave rows far from the margin with the full model's gradient
+    #: when a certificate settles them (``warm.Certificate``); off only to compare against
+    certify: bool = True
 
     def _row_c(self, rows: np.ndarray) -> np.ndarray:
         """The box limit C (times the class weight) of each row."""
@@ -299,28 +302,55 @@ class SVMRefitProblem:
         pred = clf.classes_[vote_codes(dec)].astype(np.int64)
         return pred, (dec if present.size == self.n_classes else None)
 
-    def _fit_warm(self, row: int) -> tuple[np.ndarray, np.ndarray | None]:
+    def _fit_warm(self, row: int) -> tuple[np.ndarray, np.ndarray | None, np.ndarray | None]:
         """Two classes, our solver: warm start from the full solution without ``row`` (warm.refit_without),
-        decision values of every training row from the final gradient (f = y (G + 1) - rho)."""
+        decision values of every training row from the final gradient (f = y (G + 1) - rho), and the rows
+        whose decision value was left behind under a certificate (see :meth:`_stale_zone`), or None."""
         assert self.solver is not None and self.alpha is not None and self.grad is not None
-        assert self.c_row is not None
+        assert self.c_row is not None and self.qd is not None
         m = self.y.shape[0]
         ypm = np.where(self.y == 1, 1.0, -1.0)
         alpha, grad, c = self.alpha.copy(), self.grad.copy(), self.c_row.copy()
         idx = np.arange(m)
+        cert = None
         if smo_linear.is_linear(self.solver):  # linear kernel from X: SMO from the primal vector
             args = (self.eps, self.qd, self.near)
             rho, _ = smo_linear.refit_without(self.solver, ypm, c, alpha, grad, row, *args)
         else:
-            rho, _ = warm.refit_without(
-                self.solver, idx, ypm, c, alpha, grad, row, self.eps, True, self.qd, self.near, self.face
-            )
+            cert = warm.Certificate(self.alpha, self.grad, self._stale_zone()) if self.certify else None
+            args = (self.eps, True, self.qd, self.near, self.face, cert)
+            rho, _ = warm.refit_without(self.solver, idx, ypm, c, alpha, grad, row, *args)
         dec = ypm * (grad + 1.0) - rho
+        if cert is not None and cert.stale is not None and self._essential_unsettled(dec, cert):
+            cert.complete(self.solver, idx, ypm, c, alpha, grad, self.eps, self.qd)
+            rho = smo.rho(ypm, c, alpha, grad, row)
+            dec = ypm * (grad + 1.0) - rho
         if self.ties == "libsvm" and (
             not self._intercept_is_unique(dec, -rho, row) or self._near_zero(dec, alpha)
         ):
-            return self._fit_without(row)
-        return np.where(dec > 0, 1, 0).astype(np.int64), dec
+            return (*self._fit_without(row), None)
+        return np.where(dec > 0, 1, 0).astype(np.int64), dec, (cert.stale if cert is not None else None)
+
+    def _stale_zone(self) -> float:
+        """How far from 0 a decision value (and from 1 a margin y f) must stay, whatever the rows it left
+        behind, for a warm refit to skip their update (:func:`holdfast.learners.smo.certify`). With
+        ``ties="libsvm"``: the tie allowance of :meth:`_near_zero` (at its largest, sum(alpha) <= sum(C))
+        and the kink tolerance of :meth:`_unique`, so both checks come out as with every row updated."""
+        if self.ties != "libsvm":
+            return 0.0
+        assert self.c_row is not None and self.qd is not None
+        tol = float(self.svc_params.get("tol", 1e-6))
+        return max(100.0 * tol, tie_tolerance(tol, float(self.c_row.sum()), float(self.qd.max())))
+
+    def _essential_unsettled(self, dec: np.ndarray, cert: warm.Certificate) -> bool:
+        """True when whether the refit changes the model (``ESSENTIAL_CHANGE``) depends on the rows a
+        certificate left behind: no updated row moved that far, and a left row may have."""
+        assert cert.stale is not None and self.qd is not None
+        moved = np.abs(dec - self.full_decision)
+        if float(np.max(moved[~cert.stale])) > ESSENTIAL_CHANGE:
+            return False
+        reach = moved[cert.stale] + cert.radius * np.sqrt(self.qd[cert.stale])
+        return bool(reach.size and float(np.max(reach)) > ESSENTIAL_CHANGE)
 
     def _near_zero(self, dec: np.ndarray, alpha: np.ndarray) -> bool:
         """True when a decision value is too close to 0 for its sign to be the reference's (see
@@ -350,15 +380,16 @@ class SVMRefitProblem:
         present = int(np.count_nonzero(counts))  # classes left without the row (np.unique: 2 ms at 100,000)
         fast = self.K is not None or self.KW is not None
         two = present == 2
+        stale = None
         if self.alpha is not None and two:
-            pred, dec = self._fit_warm(row)
+            pred, dec, stale = self._fit_warm(row)
         elif self.pairs is not None and present == self.n_classes:
             pred, dec = self._fit_pairs(row)
         elif self.working is not None and fast and two:
             pred, dec = self._fit_working_set(row)
         else:
             pred, dec = self.fit_predict(np.concatenate([np.arange(row), np.arange(row + 1, m)]))
-        return refit_outcome(row, pred, dec, self.y, self.full_prediction, self.full_decision)
+        return refit_outcome(row, pred, dec, self.y, self.full_prediction, self.full_decision, stale)
 
 
 @dataclass

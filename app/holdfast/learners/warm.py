@@ -8,10 +8,12 @@ the gradient is updated from the changed rows' kernel rows only, and the solver 
 
 from __future__ import annotations
 
+from dataclasses import dataclass, field
+
 import numpy as np
 
 from holdfast.learners.face import FaceInverse
-from holdfast.learners.smo import Kernel, gradient, regrow, rho, solve
+from holdfast.learners.smo import Kernel, certify, gradient, regrow, rho, solve
 
 
 def _shift(
@@ -165,7 +167,10 @@ def polish(
         rest = F0
     if active is not None and acc is not None:
         cols = np.setdiff1d(active, rest, assume_unique=True) if len(rest) else active
-        G[cols] += y[cols] * kernel.combo(idx[rows], dy, idx[cols])
+        if face is not None:
+            G[cols] += y[cols] * face.spread(kernel, idx, rows, dy, cols)
+        else:
+            G[cols] += y[cols] * kernel.combo(idx[rows], dy, idx[cols])
         acc[0][rows] += dy
         acc[1][rows] = True
     elif len(rest) == 0 and all_rows:
@@ -249,6 +254,61 @@ def _direct_step(
     return d if np.all(np.isfinite(d)) else None
 
 
+@dataclass
+class Certificate:
+    """Lets :func:`finish` skip the last update of the rows outside the active set when
+    :func:`holdfast.learners.smo.certify` shows it cannot change anything asked of them.
+
+    ``alpha0``/``G0``: the solution the refit started from (the full model) and its exact gradient;
+    ``zone``: how far from 0 a decision value, and from 1 a margin y f, must stay for its row to be left
+    (the caller's allowance for ties and for the intercept's kinks). After :func:`finish`, ``stale``
+    marks the rows left with their gradient from ``G0``, within ``radius`` sqrt(K(x, x)) of the true one
+    (None: every row is current), and :meth:`complete` brings them up to date.
+    """
+
+    alpha0: np.ndarray
+    G0: np.ndarray
+    zone: float
+    radius: float = 0.0
+    stale: np.ndarray | None = None
+    _active: np.ndarray = field(default_factory=lambda: np.empty(0, dtype=np.int64))
+    _acc: tuple[np.ndarray, np.ndarray] | None = None
+    _stash: np.ndarray | None = None
+
+    def hold(
+        self, radius: float, active: np.ndarray, acc: tuple[np.ndarray, np.ndarray], G: np.ndarray
+    ) -> None:
+        """Record the skipped update: ``active`` rows are current, the others get ``G0`` (``radius``)."""
+        self.radius = radius
+        self.stale = np.ones(len(G), dtype=bool)
+        self.stale[active] = False
+        self._stash = G[self.stale].copy()
+        G[self.stale] = self.G0[self.stale]
+        self._active, self._acc = active, acc
+
+    def complete(
+        self,
+        kernel: Kernel,
+        idx: np.ndarray,
+        y: np.ndarray,
+        C: np.ndarray,
+        alpha: np.ndarray,
+        G: np.ndarray,
+        eps: float,
+        QD: np.ndarray,
+    ) -> None:
+        """The skipped update after all (``regrow``), and SMO in the unlikely case a row then violates the
+        stopping rule; afterwards every row's gradient is current and ``stale`` is None."""
+        if self.stale is None or self._acc is None:
+            return
+        assert self._stash is not None
+        G[self.stale] = self._stash  # the values the deferred changes in ``_acc`` apply to
+        rows = regrow(kernel, idx, y, C, alpha, G, eps, self._active, self._acc)
+        if len(rows):
+            solve(kernel, idx, y, C, alpha, G, eps, QD, active=rows, acc=self._acc)
+        self.stale, self.radius, self._acc, self._stash = None, 0.0, None, None
+
+
 def refit_without(
     kernel: Kernel,
     idx: np.ndarray,
@@ -262,6 +322,7 @@ def refit_without(
     QD: np.ndarray | None = None,
     near: np.ndarray | None = None,
     face: FaceInverse | None = None,
+    cert: Certificate | None = None,
 ) -> tuple[float, int]:
     """Warm-started solve of the problem without position ``pos``; arrays changed in place.
 
@@ -270,12 +331,13 @@ def refit_without(
     and the next step solves the smaller face) each followed by a short SMO run at ``eps``; the last word is
     always an unlimited SMO run at ``eps``, so the result meets libsvm's stopping rule whatever the
     Newton steps did. ``near``: rows (boolean per position) SMO works on first besides those with a
-    non-zero alpha after the seed (shrinking; see ``_smo``). Returns (rho, SMO iterations).
+    non-zero alpha after the seed (shrinking; see ``_smo``). ``cert``: see :func:`finish`. Returns (rho,
+    SMO iterations).
     """
     if QD is None:
         QD = kernel.diag(idx)
     seed_without(kernel, idx, y, C, alpha, G, pos, all_rows)
-    its = finish(kernel, idx, y, C, alpha, G, eps, all_rows, QD, near, face)
+    its = finish(kernel, idx, y, C, alpha, G, eps, all_rows, QD, near, face, cert)
     return rho(y, C, alpha, G, pos), its
 
 
@@ -291,6 +353,7 @@ def finish(
     QD: np.ndarray,
     near: np.ndarray | None,
     face: FaceInverse | None = None,
+    cert: Certificate | None = None,
 ) -> int:
     """From a feasible ``alpha`` near the optimum with its gradient: SMO to a loose violation, rounds of
     Newton steps each followed by a short SMO run, and an unlimited SMO run at ``eps`` as the last word
@@ -303,8 +366,18 @@ def finish(
     active row join A and the rounds of Newton steps go on over the larger set (up to ``GROW_ROUNDS``
     times; plain SMO alone needed 20,000+ pair updates after one row joined). The last run goes on over
     all rows until every row meets the stopping rule (see ``smo._smo``). Without ``near`` every row is
-    active throughout."""
-    active = None if near is None else np.flatnonzero(near | ((alpha > 0) & (alpha < C)))
+    active throughout.
+
+    With ``cert``, the other rows' update is skipped when :func:`holdfast.learners.smo.certify` shows it
+    cannot change anything asked of them (stopping rule, signs, margins): their gradient is then left
+    behind by at most ``cert.radius`` (times sqrt K(x, x)) and ``cert`` says which rows, and can bring
+    them up to date (:meth:`Certificate.complete`)."""
+    active = None
+    if near is not None:
+        work = near | ((alpha > 0) & (alpha < C))
+        if cert is not None:
+            work |= alpha != cert.alpha0  # the rows the seed changed (``certify`` needs them current)
+        active = np.flatnonzero(work)
     acc = None if active is None else (np.zeros(len(idx)), np.zeros(len(idx), dtype=np.bool_))
     its = 0
     for _ in range(GROW_ROUNDS):
@@ -320,6 +393,11 @@ def finish(
                 break
         if active is None or acc is None or len(active) == len(idx):
             break
+        if cert is not None:
+            radius = certify(y, C, alpha, G, cert.alpha0, cert.G0, QD, eps, active, cert.zone)
+            if radius >= 0:
+                cert.hold(radius, active, acc, G)
+                return its
         active = regrow(kernel, idx, y, C, alpha, G, eps, active, acc)
         if len(active) == 0:  # every row meets the stopping rule, with every row's gradient up to date
             return its
