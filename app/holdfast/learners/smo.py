@@ -383,8 +383,9 @@ def _regrow(
 
 
 @njit(nogil=True, cache=True)
-def _certify(y, C, alpha, G, alpha0, G0, QD, act, eps, zone):
-    """The radius of the certificate of :func:`certify`, or -1.0 when it cannot be given."""
+def _certify(y, C, alpha, G, alpha0, G0, QD, act, eps, zone, doubt):
+    """The radius of the certificate of :func:`certify`, or -1.0 when it cannot be given; ``doubt`` marks
+    the outside rows it does not settle."""
     n = y.shape[0]
     inside = np.zeros(n, dtype=np.bool_)
     for t in act:
@@ -423,13 +424,14 @@ def _certify(y, C, alpha, G, alpha0, G0, QD, act, eps, zone):
             continue
         rt = r * math.sqrt(max(QD[t], 0.0))
         v = -y[t] * G0[t]
-        if ((y[t] > 0 and alpha[t] < C[t]) or (y[t] < 0 and alpha[t] > 0)) and v + rt > m_act:
-            return -1.0
-        if ((y[t] > 0 and alpha[t] > 0) or (y[t] < 0 and alpha[t] < C[t])) and v - rt < big_m_act:
-            return -1.0
         f = y[t] * (G0[t] + 1.0) - rho
-        if abs(f) <= rt + zone or abs(y[t] * f - 1.0) <= rt + zone:
-            return -1.0
+        if (
+            (((y[t] > 0 and alpha[t] < C[t]) or (y[t] < 0 and alpha[t] > 0)) and v + rt > m_act)
+            or (((y[t] > 0 and alpha[t] > 0) or (y[t] < 0 and alpha[t] < C[t])) and v - rt < big_m_act)
+            or abs(f) <= rt + zone
+            or abs(y[t] * f - 1.0) <= rt + zone
+        ):
+            doubt[t] = True
     return r
 
 
@@ -909,9 +911,11 @@ def certify(
     eps: float,
     active: np.ndarray,
     zone: float,
+    doubt: np.ndarray,
 ) -> float:
     """Whether the rows outside ``active`` need their gradient at all: the radius r of a certificate that
-    settles everything asked of them, else -1.0 (then :func:`regrow` brings them up to date).
+    settles everything asked of them except the rows it marks in ``doubt`` (boolean, in place), else
+    -1.0 (then :func:`regrow` brings them up to date).
 
     ``alpha0``/``G0`` is a solution the problem started from (the full model, in a refit) with its exact
     gradient; the rows outside ``active`` still have their alpha from it, and the active rows' ``G`` is
@@ -923,7 +927,9 @@ def certify(
     and m(a) - M(a) < eps over the active rows), and (b) keep the decision value ``f = y (G + 1) - rho``
     more than ``zone`` away from 0 and the margin ``y f`` more than ``zone`` away from 1 (rho from the free
     rows, all active): the signs and the intercept's optimality are then those of the fully updated
-    gradient. Needs a free row (otherwise rho depends on the outside rows).
+    gradient. Rows for which (a) or (b) fails are marked in ``doubt``. -1.0 when there is no free row
+    (rho would depend on the outside rows), the active rows do not meet the stopping rule, or an outside
+    row's alpha is not ``alpha0``'s.
     """
     return float(
         _certify(
@@ -937,8 +943,25 @@ def certify(
             np.ascontiguousarray(active, dtype=np.int64),
             float(eps),
             float(zone),
+            doubt,
         )
     )
+
+
+def extremes(
+    y: np.ndarray, C: np.ndarray, alpha: np.ndarray, G: np.ndarray, act: np.ndarray
+) -> tuple[float, float]:
+    """libsvm's (max of -y G over I_up, max of y G over I_low) among the positions ``act``: m(a) and
+    -M(a) of the stopping rule (Chang & Lin 2011, eq. 4.13)."""
+    g1, g2 = _extremes(y, C, alpha, G, np.ascontiguousarray(act, dtype=np.int64))
+    return float(g1), float(g2)
+
+
+def smo_sets(y: np.ndarray, C: np.ndarray, alpha: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Membership of I_up and I_low (Chang & Lin 2011, eq. 4.13; rows with C = 0 in neither)."""
+    up = ((y > 0) & (alpha < C)) | ((y < 0) & (alpha > 0))
+    low = ((y > 0) & (alpha > 0)) | ((y < 0) & (alpha < C))
+    return up, low
 
 
 def gradient(kernel: Kernel, idx: np.ndarray, y: np.ndarray, alpha: np.ndarray) -> np.ndarray:

@@ -13,7 +13,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from holdfast.learners.face import FaceInverse
-from holdfast.learners.smo import Kernel, certify, gradient, regrow, rho, solve
+from holdfast.learners.smo import Kernel, certify, extremes, gradient, regrow, rho, smo_sets, solve
 
 
 def _shift(
@@ -254,6 +254,12 @@ def _direct_step(
     return d if np.all(np.isfinite(d)) else None
 
 
+#: Largest share of the rows outside the active set that a certificate may leave in doubt: those rows get
+#: their gradient computed exactly (a sum over the changed rows' kernel values at their places), the rest
+#: stay behind. With more, bringing every row up to date (``regrow``, whole kernel rows) costs less.
+DOUBT_SHARE = 0.25
+
+
 @dataclass
 class Certificate:
     """Lets :func:`finish` skip the last update of the rows outside the active set when
@@ -263,7 +269,8 @@ class Certificate:
     ``zone``: how far from 0 a decision value, and from 1 a margin y f, must stay for its row to be left
     (the caller's allowance for ties and for the intercept's kinks). After :func:`finish`, ``stale``
     marks the rows left with their gradient from ``G0``, within ``radius`` sqrt(K(x, x)) of the true one
-    (None: every row is current), and :meth:`complete` brings them up to date.
+    (None: every row is current), and :meth:`complete` brings them up to date. Rows the certificate
+    leaves in doubt get their exact gradient (:meth:`settle`).
     """
 
     alpha0: np.ndarray
@@ -275,16 +282,49 @@ class Certificate:
     _acc: tuple[np.ndarray, np.ndarray] | None = None
     _stash: np.ndarray | None = None
 
-    def hold(
-        self, radius: float, active: np.ndarray, acc: tuple[np.ndarray, np.ndarray], G: np.ndarray
-    ) -> None:
-        """Record the skipped update: ``active`` rows are current, the others get ``G0`` (``radius``)."""
+    def settle(
+        self,
+        kernel: Kernel,
+        idx: np.ndarray,
+        y: np.ndarray,
+        C: np.ndarray,
+        alpha: np.ndarray,
+        G: np.ndarray,
+        eps: float,
+        QD: np.ndarray,
+        active: np.ndarray,
+        acc: tuple[np.ndarray, np.ndarray],
+    ) -> bool:
+        """After SMO on ``active`` (deferred changes in ``acc``): True when the rows outside it need no
+        update (``certify``), or only the rows it leaves in doubt (at most ``DOUBT_SHARE`` of them), whose
+        exact gradient ``G0 + Q(a - a0)`` is computed and which meet the stopping rule with the active
+        rows (neither raising m(a) nor lowering M(a)). Then ``G`` holds ``G0`` on the ``stale`` rows and
+        exact values elsewhere. False: nothing changed, the caller updates every row."""
+        doubt = np.zeros(len(idx), dtype=bool)
+        radius = certify(y, C, alpha, G, self.alpha0, self.G0, QD, eps, active, self.zone, doubt)
+        outside = len(idx) - len(active)
+        if radius < 0 or int(doubt.sum()) > DOUBT_SHARE * outside:
+            return False
+        rows = np.flatnonzero(doubt)
+        exact = self.G0[rows]
+        if len(rows):
+            moved = np.flatnonzero(alpha != self.alpha0)  # all active (``certify`` checked)
+            step = (alpha[moved] - self.alpha0[moved]) * y[moved]
+            exact = exact + y[rows] * kernel.combo(idx[moved], step, idx[rows])
+            up, low = smo_sets(y[rows], C[rows], alpha[rows])
+            g1, g2 = extremes(y, C, alpha, G, np.ascontiguousarray(active, dtype=np.int64))
+            v = -y[rows] * exact
+            if np.any(up & (v > g1)) or np.any(low & (v < -g2)):
+                return False  # a row that must join: the caller's regrow takes it in
         self.radius = radius
-        self.stale = np.ones(len(G), dtype=bool)
+        self.stale = np.ones(len(idx), dtype=bool)
         self.stale[active] = False
-        self._stash = G[self.stale].copy()
+        self._stash = G[self.stale].copy()  # what the changes deferred in ``acc`` apply to
+        self.stale[rows] = False
         G[self.stale] = self.G0[self.stale]
+        G[rows] = exact
         self._active, self._acc = active, acc
+        return True
 
     def complete(
         self,
@@ -302,7 +342,9 @@ class Certificate:
         if self.stale is None or self._acc is None:
             return
         assert self._stash is not None
-        G[self.stale] = self._stash  # the values the deferred changes in ``_acc`` apply to
+        outside = np.ones(len(idx), dtype=bool)
+        outside[self._active] = False
+        G[outside] = self._stash  # the values the deferred changes in ``_acc`` apply to
         rows = regrow(kernel, idx, y, C, alpha, G, eps, self._active, self._acc)
         if len(rows):
             solve(kernel, idx, y, C, alpha, G, eps, QD, active=rows, acc=self._acc)
@@ -393,11 +435,8 @@ def finish(
                 break
         if active is None or acc is None or len(active) == len(idx):
             break
-        if cert is not None:
-            radius = certify(y, C, alpha, G, cert.alpha0, cert.G0, QD, eps, active, cert.zone)
-            if radius >= 0:
-                cert.hold(radius, active, acc, G)
-                return its
+        if cert is not None and cert.settle(kernel, idx, y, C, alpha, G, eps, QD, active, acc):
+            return its
         active = regrow(kernel, idx, y, C, alpha, G, eps, active, acc)
         if len(active) == 0:  # every row meets the stopping rule, with every row's gradient up to date
             return its
