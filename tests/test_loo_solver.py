@@ -190,3 +190,15 @@ def test_certified_refits_tell_what_fully_updated_ones_tell(precompute, ties, mo
         assert abs(a.loo_margin - b.loo_margin) < 1e-9
         assert (a.max_change > ESSENTIAL_CHANGE) == (b.max_change > ESSENTIAL_CHANGE)
         assert a.max_change <= b.max_change + 1e-12  # taken over fewer rows, never more
+
+
+@pytest.mark.parametrize("kernel", ["rbf", "poly", "linear"])
+def test_seed_decision_equals_svc_decision_function(kernel):
+    """The decision values the fit above the precompute limit computes from kernel blocks (to choose the
+    kernel rows it stores) equal scikit-learn's ``SVC.decision_function`` on breast cancer."""
+    X, y = load_breast_cancer(return_X_y=True)
+    X = StandardScaler().fit_transform(X)
+    learner = SVMLearner(kernel=kernel, C=1.0, degree=2, coef0=1.0)
+    learner.fit(X, y)
+    seed = _svc(learner).fit(X, y)
+    assert np.allclose(learner._seed_decision(X, seed), seed.decision_function(X), rtol=0, atol=1e-9)
