@@ -103,7 +103,7 @@ def test_face_spread_equals_the_kernel_sum(solved, monkeypatch):
     """``FaceInverse.spread`` (the F0 x N part from the stored block ``KN``, the rest from kernel rows)
     equals ``sum_k coef_k K(x_rows_k, x_cols)`` taken straight from the kernel matrix, for rows inside F0,
     partly and wholly outside it, and columns inside N, partly and wholly outside it; without ``KN`` (over
-    its byte limit) it is ``combo``."""
+    its byte limit) it is the kernel sum itself."""
     kernel, ypm, C, alpha, G = solved
     m = len(ypm)
     near = np.flatnonzero((G + 1.0) < 1.3)  # some rows, holding F0 and more

@@ -20,6 +20,7 @@ from sklearn.svm import SVC
 
 from holdfast.engine.loo import exact_loo
 from holdfast.learners import smo, warm
+from holdfast.learners import svm as svm_module
 from holdfast.learners.base import ESSENTIAL_CHANGE
 from holdfast.learners.svm import SVMLearner
 
@@ -165,7 +166,8 @@ def test_certified_refits_tell_what_fully_updated_ones_tell(precompute, ties, mo
     """Refits that leave rows far from the margin with the full model's gradient under a certificate
     (``smo.certify``) give the same LOO prediction, flipped rows, LOO margin and essential flag as the same
     refits with every row updated, on breast cancer (all 569 rows, RBF), with the kernel matrix and with
-    kernel rows from X; and the certificate is actually given (for a fifth of the refits here)."""
+    kernel rows from X; and the certificate is actually given (for a fifth of the refits here). The LOO
+    predictions also equal scikit-learn's LeaveOneOut (Pedregosa et al. 2011)."""
     X, y = load_breast_cancer(return_X_y=True)
     X = StandardScaler().fit_transform(X)
     learner = SVMLearner(kernel="rbf", C=1.0, ties=ties, precompute_max_rows=10_000 if precompute else 10)
@@ -181,7 +183,12 @@ def test_certified_refits_tell_what_fully_updated_ones_tell(precompute, ties, mo
 
     monkeypatch.setattr(warm, "certify", counted)
     rows = np.flatnonzero(model.support)
+    assert not problem.certify  # off by default below svm.CERTIFY_MIN_ROWS; on here to test it
+    problem.certify = True
     with_cert = [problem.refit_without(int(r)) for r in rows]
+    if ties == "libsvm" and precompute:  # and against the reference itself
+        reference = cross_val_predict(_svc(learner), X, y, cv=LeaveOneOut())
+        assert np.array_equal(np.array([o.loo_code for o in with_cert]), reference[rows])
     problem.certify = False
     without = [problem.refit_without(int(r)) for r in rows]
     assert sum(given) >= 10  # 22 of 119 refits here; most at 20,000 rows (bench_solver_scale.py)
@@ -202,3 +209,27 @@ def test_seed_decision_equals_svc_decision_function(kernel):
     learner.fit(X, y)
     seed = _svc(learner).fit(X, y)
     assert np.allclose(learner._seed_decision(X, seed), seed.decision_function(X), rtol=0, atol=1e-9)
+
+
+@pytest.mark.parametrize("name", ["cancer", "digits"])
+@pytest.mark.parametrize("kernel", ["rbf", "poly"])
+@pytest.mark.parametrize("precompute", [True, False])
+def test_large_problem_paths_on_small_data_match_leave_one_out(name, kernel, precompute, monkeypatch):
+    """The paths the learner takes from ``CERTIFY_MIN_ROWS`` rows on (the certificate, the dense
+    ``K(F0, near)`` block), forced on for small data: LOO predictions equal scikit-learn's LeaveOneOut
+    (Pedregosa et al. 2011), flip counts equal independent full SVC refits."""
+    monkeypatch.setattr(svm_module, "CERTIFY_MIN_ROWS", 0)
+    X, y = _load(name)
+    if name == "digits":  # two classes: 3 against the rest keeps the refits on one machine
+        y = (y == 3).astype(np.int64)
+    learner = SVMLearner(
+        kernel=kernel, C=1.0, degree=2, coef0=1.0, precompute_max_rows=10_000 if precompute else 10
+    )
+    model = learner.fit(X, y)
+    problem = learner.refit_problem()
+    assert problem.certify and problem.face is not None and problem.face.KN is not None
+    result = exact_loo(model, problem, jobs=2)
+    reference = cross_val_predict(_svc(learner), X, y, cv=LeaveOneOut())
+    assert int((result.loo_code != reference).sum()) == 0
+    rows = np.flatnonzero(model.support)[::6]
+    assert np.array_equal(result.flip_count[rows], _flips(X, y, learner, model.prediction, rows))

@@ -112,9 +112,9 @@ class FaceInverse:
         self, kernel: Kernel, idx: np.ndarray, rows: np.ndarray, coef: np.ndarray, cols: np.ndarray
     ) -> np.ndarray:
         """:meth:`combo` for many columns: the part inside F0 x N from ``KN`` (one dense product over
-        every column of N), the rest from ``kernel``; :meth:`combo` when there is no ``KN``."""
+        every column of N), the rest from ``kernel``; all from ``kernel`` when there is no ``KN``."""
         if self.KN is None or self.near_where is None:
-            return self.combo(kernel, idx, rows, coef, cols)
+            return kernel.combo(idx[rows], coef, idx[cols])
         wr, wc = self.where[rows], self.near_where[cols]
         ir, ic = wr >= 0, wc >= 0
         out = np.zeros(len(cols))

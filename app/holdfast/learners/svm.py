@@ -77,6 +77,12 @@ WORKING_ROWS_MAX_BYTES = 2 * 1024**3
 #: 0.2 rather than 0.5: 11-25% less time per refit on the demo data at 3,000-15,000 rows, the same results
 #: (the KKT check adds any row that is needed); 0.0 needs a second solve too often (bench_scan_scale.py).
 WORKING_SET_SLACK = 0.2
+#: From this many training rows, two-class RBF/polynomial refits leave rows far from the margin under a
+#: certificate (``warm.Certificate``) and update the active rows after Newton steps from one dense block
+#: (``FaceInverse.KN``). Below, both cost more than they save: their numpy work holds the GIL that the
+#: refit threads share (2,000 rows, two threads: LOO 1.3 -> 1.8 s); even at 5,000 rows; per refit 13.1 ->
+#: 12.0 ms at 10,000 rows, 50 -> 29 ms at 20,000 and 172 -> 84 ms at 50,000 (one thread, saved problems).
+CERTIFY_MIN_ROWS = 4_000
 #: Kernel values per block when decision values are computed from kernel blocks (32 MB of float64).
 COMBO_BLOCK_VALUES = 4_000_000
 #: Kernel rows cached by our solver when it computes them from X (linear kernel above the limit):
@@ -406,9 +412,11 @@ class SVMLearner:
         problem.qd = kernel.diag(np.arange(m))
         dec = ypm * (grad + 1.0) - rho
         problem.near = smo_linear.near_rows(ypm, dec) if linear else ypm * dec < 1.0 + WORKING_SET_SLACK
+        problem.certify = m >= CERTIFY_MIN_ROWS
         if not linear:
             work = np.flatnonzero(problem.near | ((alpha > 0) & (alpha < problem.c_row)))
-            problem.face = FaceInverse.build(kernel, np.arange(m), ypm, alpha, problem.c_row, work)
+            near = work if problem.certify else None
+            problem.face = FaceInverse.build(kernel, np.arange(m), ypm, alpha, problem.c_row, near)
         return DualModel.from_dual(alpha, ypm, rho, dec, self._args())
 
     def _fit_own_pairs(

@@ -135,7 +135,7 @@ class SVMRefitProblem:
     #: resolved): "libsvm" solves the whole refit again with libsvm; "optimum" keeps our refit's sign
     ties: str = "libsvm"
     #: two classes, our solver: let a refit leave rows far from the margin with the full model's gradient
-    #: when a certificate settles them (``warm.Certificate``); off only to compare against
+    #: when a certificate settles them (``warm.Certificate``; the learner sets it by size)
     certify: bool = True
 
     def _row_c(self, rows: np.ndarray) -> np.ndarray:
