@@ -233,3 +233,20 @@ def test_large_problem_paths_on_small_data_match_leave_one_out(name, kernel, pre
     assert int((result.loo_code != reference).sum()) == 0
     rows = np.flatnonzero(model.support)[::6]
     assert np.array_equal(result.flip_count[rows], _flips(X, y, learner, model.prediction, rows))
+
+
+@pytest.mark.parametrize(
+    ("kernel", "coef0", "certified"), [("rbf", 0.0, True), ("poly", 1.0, True), ("poly", -1.0, False)]
+)
+def test_no_certificate_for_a_kernel_that_may_be_indefinite(kernel, coef0, certified, monkeypatch):
+    """The certificate's bound needs a positive semi-definite kernel (an inner product in a feature space):
+    RBF and the polynomial kernel with coef0 >= 0 get it; with coef0 < 0 the polynomial kernel can be
+    indefinite (its Gram matrix here has a negative eigenvalue) and the refits update every row."""
+    monkeypatch.setattr(svm_module, "CERTIFY_MIN_ROWS", 0)
+    X, y = _load("cancer")
+    learner = SVMLearner(kernel=kernel, C=1.0, degree=3, coef0=coef0)
+    learner.fit(X, y)
+    assert learner.refit_problem().certify is certified
+    if not certified:
+        K = learner.refit_problem().K
+        assert K is not None and float(np.linalg.eigvalsh(K).min()) < -1e-6

@@ -340,6 +340,18 @@ class SVMLearner:
             extras=extras,
         )
 
+    def _kernel_is_psd(self) -> bool:
+        """True when the kernel is positive semi-definite whatever the data, so that it is an inner product
+        in some feature space (what the refit certificate's Cauchy-Schwarz bound needs): RBF and linear
+        always; the polynomial kernel (gamma x'z + coef0)^degree for coef0 >= 0 (a sum of powers of x'z
+        with non-negative weights: products of positive semi-definite kernels are positive semi-definite,
+        the Schur product theorem; e.g. Shawe-Taylor & Cristianini 2004, *Kernel Methods for Pattern
+        Analysis*, chapter 3 on the properties of kernels). With coef0 < 0 it can be indefinite: no
+        certificate."""
+        if self.kernel == "poly":
+            return self.coef0 >= 0 and self.gamma_ > 0 and self.degree >= 1
+        return True
+
     def _seed_decision(self, X: np.ndarray, seed: SVC) -> np.ndarray:
         """A two-class SVC's decision values on X, ``dual_coef_ K(support, x) + intercept_``, from kernel
         blocks against its support rows (BLAS, in chunks): what ``seed.decision_function(X)`` gives, to
@@ -412,10 +424,11 @@ class SVMLearner:
         problem.qd = kernel.diag(np.arange(m))
         dec = ypm * (grad + 1.0) - rho
         problem.near = smo_linear.near_rows(ypm, dec) if linear else ypm * dec < 1.0 + WORKING_SET_SLACK
-        problem.certify = m >= CERTIFY_MIN_ROWS
+        large = m >= CERTIFY_MIN_ROWS
+        problem.certify = large and self._kernel_is_psd()
         if not linear:
             work = np.flatnonzero(problem.near | ((alpha > 0) & (alpha < problem.c_row)))
-            near = work if problem.certify else None
+            near = work if large else None
             problem.face = FaceInverse.build(kernel, np.arange(m), ypm, alpha, problem.c_row, near)
         return DualModel.from_dual(alpha, ypm, rho, dec, self._args())
 
