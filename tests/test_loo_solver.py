@@ -228,6 +228,9 @@ def test_large_problem_paths_on_small_data_match_leave_one_out(name, kernel, pre
     model = learner.fit(X, y)
     problem = learner.refit_problem()
     assert problem.certify and problem.face is not None and problem.face.KN is not None
+    if not precompute:  # the solver's own order of the rows: near-margin rows first
+        assert problem.order is not None and not np.array_equal(problem.order, np.arange(len(y)))
+        assert np.array_equal(problem.order[problem.rank], np.arange(len(y)))
     result = exact_loo(model, problem, jobs=2)
     reference = cross_val_predict(_svc(learner), X, y, cv=LeaveOneOut())
     assert int((result.loo_code != reference).sum()) == 0
@@ -250,3 +253,18 @@ def test_no_certificate_for_a_kernel_that_may_be_indefinite(kernel, coef0, certi
     if not certified:
         K = learner.refit_problem().K
         assert K is not None and float(np.linalg.eigvalsh(K).min()) < -1e-6
+
+
+def test_libsvm_fallback_decision_in_training_order():
+    """Above the precompute limit the solver keeps its rows in its own order; the decision values of a
+    fallback libsvm refit, summed from the solver's kernel rows, come back in training order: equal to
+    scikit-learn's ``SVC.decision_function`` (breast cancer, RBF, 40 rows left out)."""
+    X, y = load_breast_cancer(return_X_y=True)
+    X = StandardScaler().fit_transform(X)
+    learner = SVMLearner(kernel="rbf", C=1.0, precompute_max_rows=10)
+    learner.fit(X, y)
+    problem = learner.refit_problem()
+    assert problem.order is not None
+    keep = np.setdiff1d(np.arange(len(y)), np.arange(0, len(y), 14))
+    clf = _svc(learner).fit(X[keep], y[keep])
+    assert np.allclose(problem._libsvm_decision(clf, keep), clf.decision_function(X), rtol=0, atol=1e-9)

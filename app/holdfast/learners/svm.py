@@ -242,6 +242,7 @@ class SVMLearner:
         own: DualModel | PairModel | None = None
         kernel: smo.Kernel | None = None
         seed_svc: SVC | None = None
+        order: np.ndarray | None = None  # the solver's order of the rows (SVMRefitProblem.order)
         if self.solver == "own" and K is not None and self.kernel == "linear" and n_classes == 2:
             # linear: SMO from the primal vector (learners.smo_linear) beats kernel rows at every size
             seed_svc = SVC(kernel="linear", **svc_params).fit(X, y)
@@ -256,16 +257,16 @@ class SVMLearner:
             # above the limit: libsvm's cold fit (shrinking, its own kernel cache) is the start, our solver
             # takes it to WARM_TOL with the most used kernel rows stored, and every refit starts from it
             seed_svc = SVC(**svc_params).fit(X, y)
-            kernel = self._stored_rows_kernel(X, y, seed_svc, row_c)
+            kernel, order = self._stored_rows_kernel(X, y, seed_svc, row_c)
         elif self.solver == "own" and self.kernel == "linear":  # no m x m matrix: K(x_i, .) = X x_i
             kernel = smo.Kernel(X=X, kind="linear", cache_rows=LINEAR_CACHE_ROWS)
         elif self.solver == "own" and n_classes > 2 and np.all(np.bincount(y, minlength=n_classes) > 0):
             # more classes above the limit: one-vs-one machines of our own (a refit re-solves only the
             # machines the row is a support row of), the kernel rows of libsvm's support rows stored
             seed_svc = SVC(**svc_params).fit(X, y)
-            kernel = self._stored_rows_kernel(X, y, seed_svc, row_c)
+            kernel, _ = self._stored_rows_kernel(X, y, seed_svc, row_c)
         if kernel is not None and n_classes == 2:
-            own = self._fit_own(kernel, y, row_c, problem, seed_svc)
+            own = self._fit_own(kernel, y, row_c, problem, seed_svc, order)
         elif kernel is not None and np.all(np.bincount(y, minlength=n_classes) > 0):
             own = self._fit_own_pairs(kernel, y, row_c, n_classes, problem)
         self.svc_on_X_ = False
@@ -366,33 +367,42 @@ class SVMLearner:
             out[k : k + step] = block @ coef + seed.intercept_[0]
         return out
 
-    def _stored_rows_kernel(self, X: np.ndarray, y: np.ndarray, seed: SVC, row_c: np.ndarray) -> smo.Kernel:
+    def _stored_rows_kernel(
+        self, X: np.ndarray, y: np.ndarray, seed: SVC, row_c: np.ndarray
+    ) -> tuple[smo.Kernel, np.ndarray | None]:
         """Kernel rows from X, with the rows refits use most stored (``smo.Kernel.KW``): support rows and
         rows near the margin under ``seed``, closest to the margin first, up to ``WORKING_ROWS_MAX_BYTES``
-        (none for the linear kernel, whose sums go through the primal vector)."""
+        (none for the linear kernel, whose sums go through the primal vector). Two classes: the kernel is
+        in the solver's order (``SVMRefitProblem.order``, returned with it): those rows first, the others
+        after them; more classes: training order (None)."""
         m = len(y)
         args = dict(kind=self.kernel, gamma=self.gamma_, degree=self.degree, coef0=self.coef0)
         if self.kernel == "linear":
-            return smo.Kernel(X=X, cache_rows=LINEAR_CACHE_ROWS, **args)  # type: ignore[arg-type]
+            return smo.Kernel(X=X, cache_rows=LINEAR_CACHE_ROWS, **args), None  # type: ignore[arg-type]
         budget = max(0, int(WORKING_ROWS_MAX_BYTES // (8 * m)))
+        order = None
         if len(seed.classes_) > 2:  # one-vs-one machines: the support rows of any machine, free ones first
             free = np.abs(seed.dual_coef_).max(axis=0) < 0.999 * row_c[seed.support_]
             rows = np.sort(seed.support_[np.argsort(~free, kind="stable")][:budget])
         else:
             ypm = np.where(y == 1, 1.0, -1.0)
             yf = ypm * self._seed_decision(X, seed)
-            support = np.zeros(m, dtype=bool)
-            support[seed.support_] = True
-            near = np.flatnonzero(support | (yf < 1.0 + WORKING_SET_SLACK))
+            first = yf < 1.0 + WORKING_SET_SLACK
+            first[seed.support_] = True
+            near = np.flatnonzero(first)
             rows = np.sort(near[np.argsort(np.abs(yf[near] - 1.0), kind="stable")][:budget])
+            order = np.concatenate([near, np.flatnonzero(~first)])
+        rank = np.arange(m) if order is None else np.argsort(order)
+        Xs = X if order is None else np.ascontiguousarray(X[order])
         wpos = np.full(m, -1, dtype=np.int64)
-        wpos[rows] = np.arange(len(rows))
+        wpos[rank[rows]] = np.arange(len(rows))
         KW = np.empty((len(rows), m))
         for k in range(0, len(rows), 512):
             KW[k : k + 512] = kernel_matrix(
-                X[rows[k : k + 512]], X, self.kernel, self.gamma_, self.degree, self.coef0
+                X[rows[k : k + 512]], Xs, self.kernel, self.gamma_, self.degree, self.coef0
             )
-        return smo.Kernel(X=X, cache_rows=LINEAR_CACHE_ROWS, KW=KW, wpos=wpos, **args)  # type: ignore[arg-type]
+        kernel = smo.Kernel(X=Xs, cache_rows=LINEAR_CACHE_ROWS, KW=KW, wpos=wpos, **args)  # type: ignore[arg-type]
+        return kernel, order
 
     def _fit_own(
         self,
@@ -401,11 +411,16 @@ class SVMLearner:
         row_c: np.ndarray,
         problem: SVMRefitProblem,
         seed: SVC | None = None,
+        order: np.ndarray | None = None,
     ) -> DualModel:
         """Two classes: our own SMO solver (holdfast.learners.smo), to ``WARM_TOL``, cold or from the
         solution of ``seed`` (libsvm's fit, above the limit); the solution is kept in ``problem`` as the
-        warm start of every refit."""
+        warm start of every refit. ``order``: the kernel's order of the rows (``SVMRefitProblem.order``);
+        ``y``, ``row_c`` and the returned model are in training order."""
         m = len(y)
+        if order is not None:
+            problem.set_order(order)
+            y, row_c = y[order], row_c[order]
         ypm = np.where(y == 1, 1.0, -1.0)
         linear = smo_linear.is_linear(kernel)
         if seed is None and linear:
@@ -415,6 +430,8 @@ class SVMLearner:
         else:
             alpha = np.zeros(m)
             alpha[seed.support_] = np.abs(seed.dual_coef_[0])
+            if order is not None:
+                alpha = alpha[order]
             if linear:  # SMO from the primal vector with face steps (no kernel rows at all)
                 alpha, grad, rho = smo_linear.fit_dual(kernel, ypm, row_c.astype(np.float64), WARM_TOL, alpha)
             else:
@@ -430,6 +447,10 @@ class SVMLearner:
             work = np.flatnonzero(problem.near | ((alpha > 0) & (alpha < problem.c_row)))
             near = work if large else None
             problem.face = FaceInverse.build(kernel, np.arange(m), ypm, alpha, problem.c_row, near)
+        if order is not None:  # the model in training order
+            rank = problem.rank
+            assert rank is not None
+            alpha, ypm, dec = alpha[rank], ypm[rank], dec[rank]
         return DualModel.from_dual(alpha, ypm, rho, dec, self._args())
 
     def _fit_own_pairs(
@@ -453,7 +474,7 @@ class SVMLearner:
         k_max = float(np.max(kernel.diag(np.arange(len(problem.y)))))
         if isinstance(own, DualModel):
             assert problem.alpha is not None and problem.grad is not None
-            ypm = np.where(problem.y == 1, 1.0, -1.0)
+            ypm = np.where(problem.in_solver_order(problem.y) == 1, 1.0, -1.0)  # as grad
             dec = ypm * (problem.grad + 1.0) + own.intercept_[0]
             return bool(np.min(np.abs(dec)) < tie_tolerance(self.tol, float(problem.alpha.sum()), k_max))
         assert problem.pairs is not None and problem.ovo_full is not None
