@@ -21,6 +21,7 @@ SMO at the target tolerance, so rounding in the inverse costs iterations, never 
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -95,18 +96,7 @@ class FaceInverse:
     ) -> np.ndarray:
         """``sum_k coef_k K(x_rows_k, x_cols)`` (positions), the part inside F0 x F0 read from the stored
         block ``K`` (a dense product, not a gather from kernel rows), the rest from ``kernel``."""
-        wr, wc = self.where[rows], self.where[cols]
-        ir, ic = wr >= 0, wc >= 0
-        out = np.zeros(len(cols))
-        if ir.any() and ic.any():
-            v = np.zeros(len(self.rows))
-            v[wr[ir]] = coef[ir]
-            out[ic] = (self.K @ v)[wc[ic]]  # |F0|^2, dense: cheaper than gathering the sub-block
-        if not ir.all():
-            out += kernel.combo(idx[rows[~ir]], coef[~ir], idx[cols])
-        if ir.any() and not ic.all():
-            out[~ic] += kernel.combo(idx[rows[ir]], coef[ir], idx[cols[~ic]])
-        return out
+        return self._sum(kernel, idx, rows, coef, cols, self.where, lambda v: self.K @ v)
 
     def spread(
         self, kernel: Kernel, idx: np.ndarray, rows: np.ndarray, coef: np.ndarray, cols: np.ndarray
@@ -115,13 +105,29 @@ class FaceInverse:
         every column of N), the rest from ``kernel``; all from ``kernel`` when there is no ``KN``."""
         if self.KN is None or self.near_where is None:
             return kernel.combo(idx[rows], coef, idx[cols])
-        wr, wc = self.where[rows], self.near_where[cols]
+        KN = self.KN
+        return self._sum(kernel, idx, rows, coef, cols, self.near_where, lambda v: v @ KN)
+
+    def _sum(
+        self,
+        kernel: Kernel,
+        idx: np.ndarray,
+        rows: np.ndarray,
+        coef: np.ndarray,
+        cols: np.ndarray,
+        col_where: np.ndarray,
+        block_times: Callable[[np.ndarray], np.ndarray],
+    ) -> np.ndarray:
+        """The kernel sum of :meth:`combo`/:meth:`spread`: rows in F0 against the block's columns
+        (``col_where``: each position's column in the block, -1 outside) from ``block_times`` (the block
+        times a vector over F0, dense), the rest from ``kernel``."""
+        wr, wc = self.where[rows], col_where[cols]
         ir, ic = wr >= 0, wc >= 0
         out = np.zeros(len(cols))
         if ir.any() and ic.any():
             v = np.zeros(len(self.rows))
             v[wr[ir]] = coef[ir]
-            out[ic] = (v @ self.KN)[wc[ic]]
+            out[ic] = block_times(v)[wc[ic]]
         if not ir.all():
             out += kernel.combo(idx[rows[~ir]], coef[~ir], idx[cols])
         if ir.any() and not ic.all():
