@@ -36,6 +36,16 @@ def _two_class(name: str) -> tuple[np.ndarray, np.ndarray]:
     return StandardScaler().fit_transform(X), y.astype(np.int64)
 
 
+def _rbf_problem(
+    X: np.ndarray, y: np.ndarray
+) -> tuple[np.ndarray, int, np.ndarray, np.ndarray, smo.Kernel, np.ndarray]:
+    """The RBF kernel matrix (gamma "scale"), m, labels as +1/-1, the box C = 1, the kernel source and
+    every position: the setup of the warm-refit tests."""
+    K = kernel_matrix(X, X, "rbf", resolve_gamma("scale", X), 3, 0.0)
+    m = len(y)
+    return K, m, np.where(y == 1, 1.0, -1.0), np.full(m, 1.0), smo.Kernel(K=K), np.arange(m)
+
+
 CASES = [
     (data, kernel, C)
     for data in ("cancer", "iris", "wine", "digits")
@@ -140,12 +150,7 @@ def test_warm_refit_that_must_grow_its_active_rows(data, monkeypatch):
     without the row (Chang & Lin 2011), and the gradient it leaves is right for every row, not only the
     active ones."""
     X, y = _two_class(data)
-    K = kernel_matrix(X, X, "rbf", resolve_gamma("scale", X), 3, 0.0)
-    m = len(y)
-    ypm = np.where(y == 1, 1.0, -1.0)
-    c = np.full(m, 1.0)
-    kern = smo.Kernel(K=K)
-    idx = np.arange(m)
+    K, m, ypm, c, kern, idx = _rbf_problem(X, y)
     alpha, grad, _, _ = smo.fit_dual(kern, idx, ypm, c, 1e-10)
     grown = []
 
@@ -171,12 +176,7 @@ def test_regrow_brings_every_gradient_up_to_date():
     """``smo.regrow`` after SMO ran with ``defer`` on some rows: every row's gradient equals one computed
     afresh, and it returns no rows exactly when every row meets the stopping rule."""
     X, y = _two_class("cancer")
-    K = kernel_matrix(X, X, "rbf", resolve_gamma("scale", X), 3, 0.0)
-    m = len(y)
-    ypm = np.where(y == 1, 1.0, -1.0)
-    c = np.full(m, 1.0)
-    kern = smo.Kernel(K=K)
-    idx = np.arange(m)
+    _, m, ypm, c, kern, idx = _rbf_problem(X, y)
     alpha, G = np.zeros(m), -np.ones(m)
     active = np.arange(0, m, 3)
     acc = (np.zeros(m), np.zeros(m, dtype=np.bool_))
@@ -258,12 +258,7 @@ def test_certified_refit_leaves_nothing_a_full_update_would_change(data):
     brings every gradient up to date with the stopping rule (Chang & Lin 2011, eq. 4.13) met. The true
     values are computed afresh from alpha."""
     X, y = _two_class(data)
-    K = kernel_matrix(X, X, "rbf", resolve_gamma("scale", X), 3, 0.0)
-    m = len(y)
-    ypm = np.where(y == 1, 1.0, -1.0)
-    c = np.full(m, 1.0)
-    kern = smo.Kernel(K=K)
-    idx = np.arange(m)
+    K, m, ypm, c, kern, idx = _rbf_problem(X, y)
     alpha0, grad0, rho0, _ = smo.fit_dual(kern, idx, ypm, c, 1e-10)
     near = ypm * (ypm * (grad0 + 1.0) - rho0) < 1.2
     zone = 1e-4

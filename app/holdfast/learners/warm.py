@@ -312,7 +312,7 @@ class Certificate:
             step = (alpha[moved] - self.alpha0[moved]) * y[moved]
             exact = exact + y[rows] * kernel.combo(idx[moved], step, idx[rows])
             up, low = smo_sets(y[rows], C[rows], alpha[rows])
-            g1, g2 = extremes(y, C, alpha, G, np.ascontiguousarray(active, dtype=np.int64))
+            g1, g2 = extremes(y, C, alpha, G, active)
             v = -y[rows] * exact
             if np.any(up & (v > g1)) or np.any(low & (v < -g2)):
                 return False  # a row that must join: the caller's regrow takes it in
