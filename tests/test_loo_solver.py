@@ -120,6 +120,23 @@ def test_warm_refits_match_leave_one_out_on_random_data(problem):
     assert np.array_equal(result.flip_count[sv], _flips(X, y, learner, model.prediction, sv))
 
 
+def test_a_row_off_the_support_set_that_frees_the_intercept_is_refitted():
+    """Found by the property test above: 1-D grid data, linear kernel, C = 0.01. The full model has w = 0
+    and a unique intercept b = -1; row 2 (alpha = 0) sits on the margin, and without it the intercept is
+    free in [-1, 1], so libsvm takes the middle and f(x_2) = 0 to rounding: LeaveOneOut predicts class 1
+    for it although it is not a support row. ``svm_refit.intercept_movers`` must name it for a refit.
+    Reference: scikit-learn's LeaveOneOut with SVC."""
+    X = np.array([0.0, -0.0, 0.5, 0.0, -0.5, 0.5, 1.5, 1.0, 0.0, 1.5, 0.0]).reshape(-1, 1)
+    y = np.array([0, 0, 0, 1, 0, 1, 0, 0, 1, 1, 1])
+    learner = SVMLearner(kernel="linear", C=0.01)
+    model = learner.fit(X, y)
+    assert not model.support[2] and 2 in model.loo_candidates()
+    result = exact_loo(model, learner.refit_problem())
+    reference = cross_val_predict(_svc(learner), X, y, cv=LeaveOneOut())
+    assert reference[2] != model.prediction[2]  # the case itself: a row off the support set that flips
+    assert np.array_equal(result.loo_code, reference)
+
+
 def test_near_flat_intercepts_in_one_dimension():
     """Near-flat intercepts (the kind of case CI found earlier, see test_loo_reference): 1-D linear data
     with two clusters far apart and C large, where without a bounded row the optimal intercept can be a

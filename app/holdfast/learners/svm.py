@@ -35,7 +35,7 @@ from holdfast.learners.base import FittedModel, signed_margins
 from holdfast.learners.face import FaceInverse
 from holdfast.learners.kernels import kernel_matrix, resolve_gamma, row_margin, submatrix
 from holdfast.learners.pairs import PairModel, fit_pairs, pair_decision, vote_codes
-from holdfast.learners.svm_refit import WARM_TOL, DualModel, SVMRefitProblem, tie_tolerance
+from holdfast.learners.svm_refit import WARM_TOL, DualModel, SVMRefitProblem, intercept_movers, tie_tolerance
 
 __all__ = [
     "SVMLearner",
@@ -322,6 +322,13 @@ class SVMLearner:
         alpha[clf.support_] = coef.max(axis=0)
         bounded = support & np.isclose(alpha, row_c, rtol=1e-8, atol=0.0)
         margin = signed_margins(decision, y)
+        refit_rows = None
+        if n_classes == 2:  # rows off the support set whose removal can free the intercept: refit them too
+            ypm = np.where(y == 1, 1.0, -1.0)
+            intercept = float(np.ravel(clf.intercept_)[0])
+            movers = intercept_movers(ypm, decision, row_c, support, intercept, 100.0 * self.tol)
+            if movers.size:
+                refit_rows = np.union1d(np.flatnonzero(support), movers)
         extras: dict[str, Any] = {"kernel_r2": self._kernel_r2(K, X, gamma), "decision": decision}
         extras["ties"] = self.ties_
         extras["tie_allowance"] = tie_tolerance(self.tol, float(alpha.sum()), self._k_max(K, X))
@@ -339,6 +346,7 @@ class SVMLearner:
             bounded=bounded,
             loo_exact=True,
             extras=extras,
+            refit_rows=refit_rows,
         )
 
     def _kernel_is_psd(self) -> bool:

@@ -86,6 +86,44 @@ def intercept_is_unique(ypm: np.ndarray, g: np.ndarray, c: np.ndarray, intercept
     return bool(right > flat and left < -flat)
 
 
+def intercept_movers(
+    ypm: np.ndarray, dec: np.ndarray, c: np.ndarray, support: np.ndarray, intercept: float, eps: float
+) -> np.ndarray:
+    """Rows outside the support set whose removal alone can change a two-class model's intercept.
+
+    Removing a row with alpha = 0 leaves the dual solution optimal (w stays), but the intercept is the
+    minimiser of ``h(b)`` (see :func:`intercept_is_unique`), to which the row adds ``C_i max(0, t_i - b)``
+    (y = +1) or ``C_i max(0, b - t_i)`` (y = -1), zero on the optimal interval [bl, bu]. Without it, h
+    changes only beyond its kink t_i, so the optimal interval (and libsvm's choice in it, the middle)
+    can change only when t_i is the interval's end on that side: t_i = bl for y = +1, t_i = bu for y = -1
+    (within ``eps``). On the margin of a unique intercept (bl = bu = b, y f(x_i) = 1) that is a row whose
+    removal can leave the intercept free, and its LOO prediction can then differ from its training
+    prediction (a decision value of 0 in a refit by libsvm). Such rows need a refit like the support rows.
+    """
+    g = dec - intercept
+    t = ypm - g
+    pos = ypm > 0
+    kinks = np.unique(t)
+    tp, cp = np.sort(t[pos]), c[pos][np.argsort(t[pos])]
+    tn, cn = np.sort(t[~pos]), c[~pos][np.argsort(t[~pos])]
+    cum_p = np.concatenate([[0.0], np.cumsum(cp)])
+    cum_n = np.concatenate([[0.0], np.cumsum(cn)])
+
+    def slope(b: np.ndarray, right: bool) -> np.ndarray:
+        side = "right" if right else "left"
+        above_p = cum_p[-1] - cum_p[np.searchsorted(tp, b, side=side)]  # y = +1 rows with kink above b
+        below_n = cum_n[np.searchsorted(tn, b, side=side)]  # y = -1 rows with kink below b
+        return below_n - above_p
+
+    flat = 1e-9 * float(c.max())
+    up = kinks[(kinks >= intercept - eps) & (slope(kinks, True) > flat)]
+    down = kinks[(kinks <= intercept + eps) & (slope(kinks, False) < -flat)]
+    bu = up.min() if up.size else np.inf
+    bl = down.max() if down.size else -np.inf
+    end = np.where(pos, np.abs(t - bl), np.abs(t - bu))
+    return np.flatnonzero(~support & (end <= eps))
+
+
 def _always(*_: object) -> bool:
     return True
 
