@@ -24,7 +24,9 @@ from holdfast.engine.scan import run_scan
 from holdfast.review.journal import Journal
 
 APP = Path(__file__).resolve().parents[1] / "app"
+# one job: refits in this process, where the tests count them (forked workers would count their own)
 SPEC = '[data]\nlabel = "grade"\nid = "sample"\n[learner]\nkernel = "rbf"\nC = 1.0\n'
+SPEC += "[run]\njobs = 1\n"
 
 
 @pytest.fixture(scope="module")

@@ -21,7 +21,9 @@ from holdfast.engine.findings import ROW_COLUMNS, Findings
 from holdfast.engine.scan import run_scan
 from holdfast.errors import Cancelled
 
+# one job: refits in this process, where the tests count them (forked workers would count their own)
 SPEC = '[data]\nlabel = "dx"\nid = "rid"\nsplit = "held"\n[learner]\nkernel = "rbf"\nC = 1.0\n'
+SPEC += "[run]\njobs = 1\n"
 LOO_COLUMNS = ("loo_prediction", "loo_miss", "loo_margin", "flip_count", "essential")
 
 

@@ -25,7 +25,9 @@ from holdfast.review.events import Decision
 from holdfast.review.whatif import CHANGED_COLUMNS, what_if
 
 GAMMA = 0.05
+# one job: refits in this process, where the tests count them (forked workers would count their own)
 SPEC = f'[data]\nlabel = "diagnosis"\nid = "case"\n[learner]\nkernel = "rbf"\nC = 1.0\ngamma = {GAMMA}\n'
+SPEC += "[run]\njobs = 1\n"
 N = 200
 PLANTED = 10
 

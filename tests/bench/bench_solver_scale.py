@@ -1,6 +1,7 @@
 """Benchmark: exact LOO with our warm-started solver against scikit-learn's LeaveOneOut, and how it scales.
 
-Two parts, each case in a fresh Python process (so the peak RSS, ``getrusage``, is that case's own):
+Two parts, each case in a fresh Python process (so the peak memory is that case's own: the process's peak
+RSS, or the sampled PSS of it and its forked refit workers when larger, see ``_PeakMemory``):
 
 1. ``--naive`` (the default first case): m = 2,000 rows of ``make_classification(n_features=10,
    n_informative=6, flip_y=0.05, random_state=0)``, standardised, RBF, C=1, gamma "scale", tol 1e-6.
@@ -16,7 +17,8 @@ Two parts, each case in a fresh Python process (so the peak RSS, ``getrusage``, 
    the time of one full SVC fit on the same data (ratio = fit+LOO over it) and naive LOO *estimated*
    from ``--naive-sample`` timed SVC refits (times m; marked ``est``), and the peak memory.
    ``--linear-sizes`` adds linear-kernel cases (20 features, 10 informative; ``--linear-naive-sample``
-   timed refits for the naive estimate, since one SVC fit there takes minutes).
+   timed refits for the naive estimate, since one SVC fit there takes minutes). ``--scan-sizes`` (RBF)
+   also times the whole ``holdfast scan`` command at those sizes, against one SVC fit.
 
 Run: ``PYTHONPATH=app python tests/bench/bench_solver_scale.py [--sizes 2000,5000,10000] [--quick]``.
 Exits 1 if the LOO predictions differ from LeaveOneOut (exactness is the point), else 0 whatever the times.
@@ -30,10 +32,68 @@ import os
 import resource
 import subprocess
 import sys
+import threading
 import time
+from pathlib import Path
 from typing import Any
 
 import numpy as np
+
+
+def _tree(pid: int) -> list[int]:
+    """``pid`` and its descendants (Linux /proc; just ``pid`` elsewhere)."""
+    found, todo = [], [pid]
+    while todo:
+        p = todo.pop()
+        found.append(p)
+        try:
+            for task in Path(f"/proc/{p}/task").iterdir():
+                todo += [int(c) for c in (task / "children").read_text().split()]
+        except OSError:
+            pass
+    return found
+
+
+def _pss_mb(pid: int) -> float:
+    """Proportional set size of ``pid`` and its descendants in MB: pages shared between them (the kernel
+    rows forked refit workers read) count once in total, not once per process as in RSS (Linux
+    ``/proc/PID/smaps_rollup``; 0 where it is missing)."""
+    total = 0.0
+    for p in _tree(pid):
+        try:
+            for line in Path(f"/proc/{p}/smaps_rollup").read_text().splitlines():
+                if line.startswith("Pss:"):
+                    total += int(line.split()[1]) / 1024
+        except OSError:
+            pass
+    return total
+
+
+class _PeakMemory:
+    """Peak memory of a process and its workers: the largest PSS sum sampled every 0.2 s, or the process's
+    own peak RSS (``getrusage``) when that is larger (a peak between samples)."""
+
+    def __init__(self, pid: int | None = None) -> None:
+        self.pid = pid or os.getpid()
+        self.peak = 0.0
+        self._stop = threading.Event()
+        self._thread = threading.Thread(target=self._run, daemon=True)
+
+    def _run(self) -> None:
+        while not self._stop.wait(0.2):
+            self.peak = max(self.peak, _pss_mb(self.pid))
+
+    def __enter__(self) -> _PeakMemory:
+        self._thread.start()
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self._stop.set()
+        self._thread.join()
+
+    def mb(self) -> float:
+        own = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024 if self.pid == os.getpid() else 0.0
+        return max(self.peak, own)
 
 
 def _data(m: int, kind: str) -> tuple[np.ndarray, np.ndarray]:
@@ -57,9 +117,10 @@ def _kernel(kind: str) -> str:
     return "linear" if kind.endswith("linear") else "rbf"
 
 
-def _whole_scan(X: np.ndarray, y: np.ndarray, kernel: str) -> float:
-    """Seconds of the whole ``holdfast scan`` command (a fresh process: start-up, reading the Parquet file,
-    fit, exact LOO, findings, writing the outputs; cache off, all cores) on the same data and settings."""
+def _whole_scan(X: np.ndarray, y: np.ndarray, kernel: str) -> tuple[float, float]:
+    """Seconds and peak memory (MB, :class:`_PeakMemory`) of the whole ``holdfast scan`` command (a fresh
+    process: start-up, reading the Parquet file, fit, exact LOO, findings, writing the outputs; cache off,
+    all cores) on the same data and settings."""
     import tempfile
     from pathlib import Path
 
@@ -76,11 +137,15 @@ def _whole_scan(X: np.ndarray, y: np.ndarray, kernel: str) -> float:
         cmd = [sys.executable, "-m", "holdfast.cli", "scan", "data.parquet", "--spec", "spec.toml"]
         cmd += ["--out", "out", "--no-cache"]
         t0 = time.perf_counter()
-        proc = subprocess.run(cmd, cwd=tmp, capture_output=True, text=True, check=False)
-        took = time.perf_counter() - t0
-        if proc.returncode != 0:
-            raise SystemExit(f"holdfast scan failed: {proc.stderr[-2000:]}")
-    return took
+        with open(Path(tmp) / "err.txt", "w+") as err:
+            proc = subprocess.Popen(cmd, cwd=tmp, stdout=subprocess.DEVNULL, stderr=err)
+            with _PeakMemory(proc.pid) as memory:
+                proc.wait()
+            took = time.perf_counter() - t0
+            if proc.returncode != 0:
+                err.seek(0)
+                raise SystemExit(f"holdfast scan failed: {err.read()[-2000:]}")
+    return took, memory.mb()
 
 
 def _svc(learner: Any) -> Any:
@@ -121,9 +186,15 @@ def _own_cold_check(X: np.ndarray, y: np.ndarray, result: Any, model: Any, n: in
 
 
 def run_case(
-    m: int, kind: str, naive_full: bool, naive_sample: int, flip_sample: int, svc_max_rows: int = 10**9
+    m: int,
+    kind: str,
+    naive_full: bool,
+    naive_sample: int,
+    flip_sample: int,
+    svc_max_rows: int = 10**9,
+    scan: bool = False,
 ) -> dict[str, Any]:
-    """One case in this process; returns the figures."""
+    """One case in this process; returns the figures (``scan``: also time the whole command)."""
     import holdfast.learners.svm_refit as refit_mod
     from holdfast.engine.loo import exact_loo
     from holdfast.learners.svm import SVMLearner
@@ -137,13 +208,14 @@ def run_case(
         return original(self, row)
 
     refit_mod.SVMRefitProblem._fit_without = counted  # type: ignore[method-assign]
-    t0 = time.perf_counter()
-    learner = SVMLearner(kernel=_kernel(kind), C=1.0, gamma="scale")
-    model = learner.fit(X, y)
-    t_fit = time.perf_counter() - t0
-    t0 = time.perf_counter()
-    result = exact_loo(model, learner.refit_problem(), jobs=-1)
-    t_loo = time.perf_counter() - t0
+    with _PeakMemory() as memory:  # the refit workers' memory counts too
+        t0 = time.perf_counter()
+        learner = SVMLearner(kernel=_kernel(kind), C=1.0, gamma="scale")
+        model = learner.fit(X, y)
+        t_fit = time.perf_counter() - t0
+        t0 = time.perf_counter()
+        result = exact_loo(model, learner.refit_problem(), jobs=-1)
+        t_loo = time.perf_counter() - t0
     d = int(model.support.sum())
     out: dict[str, Any] = {
         "m": m,
@@ -160,7 +232,7 @@ def run_case(
         out["naive_estimated"] = True
         out["naive_checked"], out["mismatches"] = _own_cold_check(X, y, result, model, naive_sample)
         out["own_check"] = True
-        out["peak_mb"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+        out["peak_mb"] = memory.mb()
         return out
     t0 = time.perf_counter()
     full = _svc(learner).fit(X, y)
@@ -169,7 +241,7 @@ def run_case(
     if naive_full:
         from sklearn.model_selection import LeaveOneOut, cross_val_predict
 
-        out["scan"] = _whole_scan(X, y, _kernel(kind))
+        out["scan"], out["scan_mb"] = _whole_scan(X, y, _kernel(kind))
 
         t0 = time.perf_counter()
         naive = cross_val_predict(_svc(learner), X, y, cv=LeaveOneOut(), n_jobs=-1)
@@ -203,7 +275,9 @@ def run_case(
             bad += int(changed.sum() != result.flip_count[r])
         out["flip_checked"] = len(rows)
         out["flip_mismatches"] = bad
-    out["peak_mb"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    out["peak_mb"] = memory.mb()
+    if scan and "scan" not in out:
+        out["scan"], out["scan_mb"] = _whole_scan(X, y, _kernel(kind))
     return out
 
 
@@ -238,7 +312,7 @@ def _row(r: dict[str, Any]) -> str:
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--case", nargs=6, help=argparse.SUPPRESS)
+    parser.add_argument("--case", nargs=7, help=argparse.SUPPRESS)
     parser.add_argument("--sizes", default="5000,10000")
     parser.add_argument(
         "--side-size", type=int, default=5000, help="rows of the imbalanced/overlapping sets (0: none)"
@@ -259,16 +333,20 @@ def main() -> None:
         help="linear cases above this: no libsvm fit (over 45 minutes at 100,000 rows); sampled refits are "
         "checked against our own cold solves instead (--linear-naive-sample of them)",
     )
+    parser.add_argument(
+        "--scan-sizes", default="20000", help="RBF sizes whose whole `holdfast scan` is also timed"
+    )
     parser.add_argument("--quick", action="store_true", help="small sizes, for a smoke run")
     parser.add_argument("--naive-only", action="store_true", help="only the fully timed naive case")
     parser.add_argument("--scale-only", action="store_true", help="skip the fully timed naive case")
     args = parser.parse_args()
     if args.case:
-        m, kind, full, sample, flips, svc_max = args.case
-        print(json.dumps(run_case(int(m), kind, full == "1", int(sample), int(flips), int(svc_max))))
+        m, kind, full, sample, flips, svc_max, scan = args.case
+        out = run_case(int(m), kind, full == "1", int(sample), int(flips), int(svc_max), scan == "1")
+        print(json.dumps(out))
         return
     if args.quick:
-        args.sizes, args.side_size, args.naive_rows = "600,1200", 800, 400
+        args.sizes, args.side_size, args.naive_rows, args.scan_sizes = "600,1200", 800, 400, "1200"
     cases = [] if args.scale_only else [(args.naive_rows, "base", "1", "0", str(args.flip_sample))]
     if not args.naive_only:
         cases += [(int(s), "base", "0", str(args.naive_sample), "0") for s in args.sizes.split(",") if s]
@@ -286,15 +364,18 @@ def main() -> None:
     failed = False
     rows = []
     for m, kind, full, sample, flips in cases:
-        r = _in_subprocess([str(m), kind, full, sample, flips, str(args.svc_max_rows)])
+        scan = "1" if kind == "base" and str(m) in args.scan_sizes.split(",") else "0"
+        r = _in_subprocess([str(m), kind, full, sample, flips, str(args.svc_max_rows), scan])
         rows.append(r)
         print(_row(r), flush=True)
         failed |= r["mismatches"] > 0 or r.get("flip_mismatches", 0) > 0
     for r in rows:
         if "scan" in r:
+            est = " (estimated)" if r["naive_estimated"] else ""
             print(
-                f"whole `holdfast scan` at {r['m']:,} rows (fresh process, cache off): {r['scan']:.1f} s; "
-                f"naive LeaveOneOut {r['naive']:.1f} s: {r['naive'] / r['scan']:.1f}x"
+                f"whole `holdfast scan` at {r['m']:,} rows (fresh process, cache off): {r['scan']:.1f} s, "
+                f"peak {r['scan_mb']:.0f} MB; {r['scan'] / r['svc_fit']:.1f}x one SVC fit; "
+                f"naive LeaveOneOut{est} {r['naive']:.1f} s: {r['naive'] / r['scan']:.1f}x"
             )
     print(f"load average {os.getloadavg()[0]:.1f}; 'est' = naive LOO estimated from a timed sample of refits")
     if any(r.get("own_check") for r in rows):

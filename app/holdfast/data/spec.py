@@ -53,7 +53,7 @@ class PrepareSpec:
 class RunSpec:
     """How to run the refits."""
 
-    jobs: int = 1
+    jobs: int = -1
     backend: str = "joblib"
     scheduler: str | None = None
     cache: bool = True
@@ -222,10 +222,10 @@ def parse_spec(table: dict[str, Any], source: str = "<spec>") -> Spec:
     for key in run_t:
         if key not in RUN_KEYS:
             raise _unknown("run.", key, RUN_KEYS, source)
-    jobs = _expect(run_t.get("jobs", 1), int, "run.jobs", source, "a positive integer or -1")
+    jobs = _expect(run_t.get("jobs", -1), int, "run.jobs", source, "a positive integer or -1")
     if jobs == 0 or jobs < -1:
         raise SpecError(f"{source}: 'run.jobs' must be a positive integer or -1 (all cores), got {jobs}")
-    backend = _choice(run_t.get("backend", "joblib"), ("joblib", "dask"), "run.backend", source)
+    backend = _choice(run_t.get("backend", "joblib"), ("joblib", "threads", "dask"), "run.backend", source)
     scheduler = run_t.get("scheduler")
     if scheduler is not None:
         _expect(scheduler, str, "run.scheduler", source, "a scheduler address such as 'tcp://127.0.0.1:8786'")
@@ -275,7 +275,7 @@ def spec_from_text(text: str, source: str = "<spec>") -> Spec:
     return parse_spec(table, source)
 
 
-def default_spec(label: str, *, id_column: str | None = None, jobs: int = 1) -> Spec:
+def default_spec(label: str, *, id_column: str | None = None, jobs: int = -1) -> Spec:
     """The spec used without a spec file: SVM, RBF kernel, C=1, gamma="scale"."""
     data = {"label": label} if id_column is None else {"label": label, "id": id_column}
     return parse_spec({"data": data, "run": {"jobs": jobs}}, source="--label")

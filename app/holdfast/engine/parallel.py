@@ -1,4 +1,5 @@
-"""Running many refits: in-process, on joblib threads, or on a dask cluster.
+"""Running many refits: in-process, on forked worker processes (Linux) or joblib threads, or on a dask
+cluster.
 
 Results come back as they finish (any order); progress and cancellation are checked between results.
 """
@@ -11,6 +12,7 @@ from typing import Any
 
 import numpy as np
 
+from holdfast.engine import forked
 from holdfast.errors import Cancelled, UserError
 from holdfast.learners.base import RefitOutcome, RefitProblem
 
@@ -66,7 +68,7 @@ def run_refits(
         _run_dask(problem, rows, n_jobs, scheduler, on_results, cancel)
         return
     with _one_blas_thread():
-        _run_local(problem, rows, n_jobs, on_results, cancel)
+        _run_local(problem, rows, n_jobs, on_results, cancel, processes=backend != "threads")
 
 
 def _run_local(
@@ -75,21 +77,29 @@ def _run_local(
     n_jobs: int,
     on_results: Callable[[list[RefitOutcome]], None],
     cancel: Callable[[], bool],
+    *,
+    processes: bool = True,
 ) -> None:
+    """Refits on this machine: in turn (one job), on forked worker processes (``processes``, Linux, enough
+    refits: engine.forked), else on threads. Rows a dead worker left undone go to threads."""
     if n_jobs == 1:
         for r in rows:
             if cancel():
                 raise Cancelled()
             on_results([problem.refit_without(int(r))])
         return
-    # Threads, not processes: our solver (numba, nogil), libsvm and numpy's kernels release the GIL, the
-    # kernel matrix is shared without copies, nothing starts up, and it works under a terminal UI that
-    # replaced stdio.
+    size = max(1, min(8, len(rows) // (n_jobs * 8) or 1))
+    chunks = _chunks(rows, size)
+    if processes and forked.available() and len(rows) >= n_jobs * forked.MIN_REFITS_PER_WORKER:
+        chunks = forked.refit_on_workers(problem, chunks, n_jobs, on_results, cancel)
+        if not chunks:
+            return
+    # Threads: our solver (numba, nogil), libsvm and numpy's kernels release the GIL, the kernel matrix is
+    # shared without copies, and nothing starts up; slower than processes where a refit holds the GIL often.
     from joblib import Parallel, delayed
 
-    size = max(1, min(8, len(rows) // (n_jobs * 8) or 1))
     gen = Parallel(n_jobs=n_jobs, prefer="threads", return_as="generator_unordered")(
-        delayed(refit_batch)(problem, chunk) for chunk in _chunks(rows, size)
+        delayed(refit_batch)(problem, chunk) for chunk in chunks
     )
     try:
         for outcomes in gen:

@@ -7,9 +7,9 @@ is reported on stderr and kept in the decisions export, never dropped. A session
 (rows identified by position) refuses a changed data file: positions would name other rows.
 
 The stored spec's ``[run]`` table is not trusted: a session file may come from someone else, and its
-``run.backend``/``run.scheduler`` could send the data to any dask scheduler. Export always refits in this
-process (joblib threads, the stored ``run.jobs``); a cluster is used only when this run's own command
-line or spec asks for one.
+``run.backend``/``run.scheduler`` could send the data to any dask scheduler. Export always refits on this
+machine (forked workers or threads, the stored ``run.jobs``); a cluster is used only when this run's own
+command line or spec asks for one.
 """
 
 from __future__ import annotations
