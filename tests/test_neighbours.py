@@ -23,6 +23,7 @@ from holdfast.insight.neighbours import (
     class_zscore_matrix,
     class_zscores,
     neighbour_dissent,
+    neighbour_dissents,
     twin_conflicts,
 )
 
@@ -101,6 +102,20 @@ def test_dissent_on_bundled_data_matches_brute_force(loader):
     for algorithm in ("kd_tree", "ball_tree", "brute"):
         again = neighbour_dissent(X, y, k=10, algorithm=algorithm, n_jobs=2)
         np.testing.assert_array_equal(again.indices, res.indices)
+
+
+@pytest.mark.parametrize("loader", [load_iris, load_wine])
+def test_one_search_for_several_k_matches_brute_force_for_each(loader):
+    """The scan asks for k and 2k neighbours from one search (``neighbour_dissents``): each k's answer is
+    the brute-force one for that k alone (iris: many tied distances, so the tie rule is exercised)."""
+    X, y = loader(return_X_y=True)
+    found = neighbour_dissents(X, y, (10, 5, 20), n_jobs=2)
+    for k in (5, 10, 20):
+        idx, _, dissent, majority = _brute_neighbours(X, y, k)
+        np.testing.assert_array_equal(found[k].indices, idx)
+        np.testing.assert_allclose(found[k].dissent, dissent)
+        np.testing.assert_array_equal(found[k].majority, majority)
+        assert found[k].k == k
 
 
 def test_majority_matches_scikit_learn_leave_one_out_knn():

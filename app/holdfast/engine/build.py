@@ -17,7 +17,7 @@ from holdfast.engine.summary_model import bounds_summary, family_summary, loo_ex
 from holdfast.insight.consensus import linear_label_logit
 from holdfast.insight.explain import explain
 from holdfast.insight.flags import FLAG_REASONS, TWIN_TOL, compute_flags
-from holdfast.insight.score import multiscale_dissent, rank_rows, suspicion_score
+from holdfast.insight.score import dissent_width, multiscale_dissent, rank_rows, suspicion_score
 from holdfast.learners.base import FittedModel, signed_margins
 
 
@@ -29,7 +29,7 @@ def _class_values(prepared: Prepared, codes: np.ndarray) -> pd.Series:
     return pd.Series(values, dtype=object if missing or labels.dtype == object else labels.dtype)
 
 
-def neighbour_evidence(prepared: Prepared, k: int) -> pd.DataFrame:
+def neighbour_evidence(prepared: Prepared, k: int, n_jobs: int | None = None) -> pd.DataFrame:
     """Neighbour evidence for every training row (NaN/-1/0 for held-out rows).
 
     ``neighbour_dissent`` and ``neighbour_majority``: share of the k nearest training rows with another
@@ -38,7 +38,7 @@ def neighbour_evidence(prepared: Prepared, k: int) -> pd.DataFrame:
     ``DISSENT_SCALES`` times k neighbours (k/2, k, 2k: less noisy than one k, used by the suspicion
     score); ``twin_conflicts``: other rows within ``TWIN_TOL`` (near-identical) carrying another label.
     """
-    from holdfast.insight.neighbours import neighbour_dissent, twin_conflicts
+    from holdfast.insight.neighbours import neighbour_dissents, twin_conflicts
 
     n = len(prepared.frame)
     tr = prepared.train_index
@@ -49,10 +49,11 @@ def neighbour_evidence(prepared: Prepared, k: int) -> pd.DataFrame:
     majority = np.full(n, -1, dtype=np.int64)
     twins = np.zeros(n, dtype=np.int64)
     if len(tr) > 1:
-        nb = neighbour_dissent(X, y, k=k)
-        dissent[tr] = nb.dissent
-        majority[tr] = nb.majority
-        dissent_avg[tr] = multiscale_dissent(X, y, k)
+        widest = dissent_width(len(tr), k)
+        found = neighbour_dissents(X, y, (k, widest), n_jobs=n_jobs)  # one search for both
+        dissent[tr] = found[k].dissent
+        majority[tr] = found[k].majority
+        dissent_avg[tr] = multiscale_dissent(X, y, k, neighbours=found[widest].indices)
         twins[tr] = twin_conflicts(X, y, tol=TWIN_TOL)
     return pd.DataFrame(
         {
@@ -64,11 +65,12 @@ def neighbour_evidence(prepared: Prepared, k: int) -> pd.DataFrame:
     )
 
 
-def quick_evidence(prepared: Prepared, k: int) -> pd.DataFrame:
+def quick_evidence(prepared: Prepared, k: int, n_jobs: int | None = None) -> pd.DataFrame:
     """The evidence that needs no refit, over all input rows: :func:`neighbour_evidence` plus
-    ``linear_logit`` (out-of-fold logistic log-odds of the label; NaN for held-out rows)."""
+    ``linear_logit`` (out-of-fold logistic log-odds of the label; NaN for held-out rows). ``n_jobs``:
+    parallel jobs of the neighbour search."""
     tr = prepared.train_index
-    evidence = neighbour_evidence(prepared, k)
+    evidence = neighbour_evidence(prepared, k, n_jobs)
     logit = np.full(len(prepared.frame), np.nan)
     logit[tr] = linear_label_logit(prepared.X[tr], prepared.y[tr])
     evidence["linear_logit"] = logit

@@ -142,7 +142,7 @@ def analyse(
     held_idx = np.flatnonzero(~prepared.train)
     held_decision = learner.decision(prepared.X[held_idx]) if len(held_idx) else None
     held_pred = learner.predict(prepared.X[held_idx]) if len(held_idx) else np.empty(0, dtype=np.int64)
-    evidence = quick_evidence(prepared, spec.insight.k)
+    evidence = quick_evidence(prepared, spec.insight.k, n_jobs=spec.run.jobs)
     static: dict[str, Any] = {}
 
     def build(done: dict[int, RefitOutcome]) -> Findings:

@@ -8,6 +8,7 @@ way on every run: neighbours are ordered by (distance, row position), the row it
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -20,6 +21,7 @@ __all__ = [
     "class_zscore_matrix",
     "class_zscores",
     "neighbour_dissent",
+    "neighbour_dissents",
     "twin_conflicts",
 ]
 
@@ -160,26 +162,43 @@ def neighbour_dissent(
     the search algorithm. Heavily tied data (many duplicates) costs more time, not more memory than a
     chunk of the widened window.
     """
+    return neighbour_dissents(X, y, (k,), n_jobs=n_jobs, algorithm=algorithm)[k]
+
+
+def neighbour_dissents(
+    X: np.ndarray,
+    y: np.ndarray | pd.Series,
+    ks: Sequence[int],
+    *,
+    n_jobs: int | None = None,
+    algorithm: str = "auto",
+) -> dict[int, NeighbourResult]:
+    """:func:`neighbour_dissent` for each k in ``ks`` (keys as given) from one search for the largest: the
+    order (distance, row position) is total, so the k nearest are the first k of the wider list, the same
+    as a search for k alone."""
     X = _as_matrix(X)
     n = X.shape[0]
     codes, classes = _codes(y, n)
     if n < 2:
         raise ValueError("neighbour_dissent needs at least 2 rows")
-    if k < 1:
-        raise ValueError(f"k must be at least 1, got {k}")
-    k = min(k, n - 1)
-    idx, dist = _search(X, k, n_jobs, algorithm)
-    nb_codes = codes[idx]
-    dissent = (nb_codes != codes[:, None]).mean(axis=1)
-    best, best_count = _majority(nb_codes, classes.size)
-    return NeighbourResult(
-        indices=idx.astype(np.int32),
-        distances=dist.astype(np.float32),
-        dissent=dissent,
-        majority=classes[best],
-        majority_share=best_count / k,
-        k=k,
-    )
+    if not ks or min(ks) < 1:
+        raise ValueError(f"k must be at least 1, got {min(ks) if ks else 'none'}")
+    widest = min(max(ks), n - 1)
+    idx, dist = _search(X, widest, n_jobs, algorithm)
+    out = {}
+    for asked in ks:
+        k = min(asked, n - 1)
+        nb_codes = codes[idx[:, :k]]
+        best, best_count = _majority(nb_codes, classes.size)
+        out[asked] = NeighbourResult(
+            indices=idx[:, :k].astype(np.int32),
+            distances=dist[:, :k].astype(np.float32),
+            dissent=(nb_codes != codes[:, None]).mean(axis=1),
+            majority=classes[best],
+            majority_share=best_count / k,
+            k=k,
+        )
+    return out
 
 
 def twin_conflicts(

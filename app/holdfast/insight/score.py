@@ -110,7 +110,14 @@ LINEAR_CLIP = 4.0
 DISSENT_SCALES = (0.5, 1.0, 2.0)
 
 
-def multiscale_dissent(X: np.ndarray, y: np.ndarray, k: int) -> np.ndarray:
+def dissent_width(m: int, k: int) -> int:
+    """The most neighbours :func:`multiscale_dissent` looks at (the widest of ``DISSENT_SCALES``)."""
+    return min(m - 1, max(1, round(max(DISSENT_SCALES) * k)))
+
+
+def multiscale_dissent(
+    X: np.ndarray, y: np.ndarray, k: int, neighbours: np.ndarray | None = None, n_jobs: int | None = None
+) -> np.ndarray:
     """Neighbour dissent averaged over ``DISSENT_SCALES`` times ``k`` nearest neighbours.
 
     Parameters
@@ -121,6 +128,10 @@ def multiscale_dissent(X: np.ndarray, y: np.ndarray, k: int) -> np.ndarray:
         Class codes.
     k : int
         The spec's neighbour count.
+    neighbours : array of shape (m, dissent_width(m, k)), optional
+        The rows' nearest neighbours, when already found (``NeighbourResult.indices``); else searched.
+    n_jobs : int, optional
+        Parallel jobs of the search.
 
     Returns
     -------
@@ -129,9 +140,12 @@ def multiscale_dissent(X: np.ndarray, y: np.ndarray, k: int) -> np.ndarray:
     from holdfast.insight.neighbours import neighbour_dissent
 
     m = len(y)
-    widest = min(m - 1, max(1, round(max(DISSENT_SCALES) * k)))
-    nb = neighbour_dissent(X, y, k=widest)
-    other = np.asarray(y)[nb.indices] != np.asarray(y)[:, None]
+    widest = dissent_width(m, k)
+    if neighbours is None:
+        neighbours = neighbour_dissent(X, y, k=widest, n_jobs=n_jobs).indices
+    if neighbours.shape[1] < widest:
+        raise ValueError(f"need {widest} neighbours per row, got {neighbours.shape[1]}")
+    other = np.asarray(y)[neighbours[:, :widest]] != np.asarray(y)[:, None]
     counts = sorted({min(widest, max(1, round(s * k))) for s in DISSENT_SCALES})
     return np.mean([other[:, :c].mean(axis=1) for c in counts], axis=0)
 
