@@ -229,3 +229,23 @@ def test_long_scans_say_when_they_fit_before_the_refit_bar(data, tmp_path, monke
     stream = io.StringIO()
     _scan(path, frame, tmp_path / "again", progress=ProgressBar(stream=stream, tty=False))
     assert not any(line.startswith("fitting") for line in stream.getvalue().splitlines())
+
+
+def test_the_first_scan_after_installing_says_it_compiles(data, tmp_path, monkeypatch):
+    """Without the solver's compiled code in numba's cache (the first run after an install) the scan says
+    why it pauses; with it (every scan in this test session has compiled it by now), nothing is added."""
+    import io
+
+    from holdfast.learners import smo
+    from holdfast.output.progress import ProgressBar
+
+    frame, path = data
+    _scan(path, frame, tmp_path / "warm")
+    assert smo.compiled_code_cached()  # numba's cache is where compiled_code_cached looks
+    stream = io.StringIO()
+    _scan(path, frame, tmp_path / "again", progress=ProgressBar(stream=stream, tty=False))
+    assert not any("compiling" in line for line in stream.getvalue().splitlines())
+    monkeypatch.setattr(scan_mod, "compiled_code_cached", lambda: False)
+    stream = io.StringIO()
+    _scan(path, frame, tmp_path / "cold", progress=ProgressBar(stream=stream, tty=False))
+    assert stream.getvalue().splitlines()[0].startswith("first scan after installing: compiling the solver")

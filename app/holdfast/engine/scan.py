@@ -27,6 +27,7 @@ from holdfast.engine.findings import Findings
 from holdfast.engine.loo import LooResult, Progress, assemble_loo, exact_loo, support_key
 from holdfast.learners import make_learner
 from holdfast.learners.base import FittedModel, RefitOutcome
+from holdfast.learners.smo import compiled_code_cached
 
 
 @dataclass
@@ -129,6 +130,8 @@ def analyse(
     y_train = prepared.y[train_idx]
     learner = make_learner(spec.learner)
     long = len(train_idx) >= NOTE_MIN_ROWS
+    if spec.learner.get("family", "svm") == "svm" and not compiled_code_cached():
+        _note(progress, "first scan after installing: compiling the solver once (about 10-60 s)")
     if long:
         family = spec.learner.get("family", "svm")
         _note(progress, f"fitting the {family} model on {len(train_idx):,} training rows")

@@ -990,3 +990,14 @@ def fit_dual(
     G = gradient(kernel, idx, y, alpha)
     its += solve(kernel, idx, y, C, alpha, G, eps, QD)  # usually 0: the fresh gradient is still optimal
     return alpha, G, rho(y, C, alpha, G), its
+
+
+def compiled_code_cached() -> bool:
+    """True when numba's cache holds the solver's compiled code (False on the first run after an install
+    or upgrade, which compiles it: tens of seconds; also False when that cannot be told)."""
+    import os
+
+    try:
+        return os.path.exists(_smo._cache._cache_file._index_path)  # numba internals: FunctionCache
+    except AttributeError:
+        return False
