@@ -28,6 +28,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import multiprocessing
 import os
 import resource
 import subprocess
@@ -200,11 +201,12 @@ def run_case(
     from holdfast.learners.svm import SVMLearner
 
     X, y = _data(m, kind)
-    cold = {"n": 0}
+    cold = multiprocessing.Value("i", 0)  # shared memory: forked refit workers count into it too
     original = refit_mod.SVMRefitProblem._fit_without
 
     def counted(self: Any, row: int) -> Any:
-        cold["n"] += 1
+        with cold.get_lock():
+            cold.value += 1
         return original(self, row)
 
     refit_mod.SVMRefitProblem._fit_without = counted  # type: ignore[method-assign]
@@ -224,7 +226,7 @@ def run_case(
         "fit": t_fit,
         "loo": t_loo,
         "ms_refit": 1000 * t_loo / max(d, 1),
-        "cold": cold["n"],
+        "cold": cold.value,
         "precomputed": learner.refit_problem().K is not None,
     }
     if _kernel(kind) == "linear" and m > svc_max_rows:  # no libsvm fit: our own cold solves are the check
