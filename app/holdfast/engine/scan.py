@@ -130,10 +130,10 @@ def analyse(
     y_train = prepared.y[train_idx]
     learner = make_learner(spec.learner)
     long = len(train_idx) >= NOTE_MIN_ROWS
-    if spec.learner.get("family", "svm") == "svm" and not compiled_code_cached():
+    family = spec.learner.get("family", "svm")
+    if family == "svm" and not compiled_code_cached():
         _note(progress, "first scan after installing: compiling the solver once (about 10-60 s)")
     if long:
-        family = spec.learner.get("family", "svm")
         _note(progress, f"fitting the {family} model on {len(train_idx):,} training rows")
     model = learner.fit(X_train, y_train)
     if long:
