@@ -57,6 +57,11 @@ def test_fingerprint_ignores_run_but_not_learner():
         (GOOD.replace("gamma = 0.5", 'gamma = "wide"'), r"'learner.gamma' must be"),
         (GOOD.replace('kernel = "rbf"', 'kernel = "sigmoid"'), r"'learner.kernel' must be one of linear"),
         (GOOD.replace("jobs = -1", "jobs = 0"), r"'run.jobs' must be a positive integer or -1"),
+        (
+            GOOD.replace("jobs = -1", 'jobs = -1\nbackend = "thread"'),
+            r"'run.backend' must be one of joblib \| threads \| dask, got 'thread'; did you mean 'threads'\?",
+        ),
+        (GOOD.replace("jobs = -1", 'jobs = -1\nbackend = "spark"'), r"got 'spark'$"),
         (GOOD.replace('family = "svm"', 'family = "forest"'), r"'learner.family' must be one of"),
         (GOOD.replace('scale = "standard"', 'scale = "minmax"'), r"'prepare.scale' must be one of standard"),
         (GOOD + "\n[insight]\nk = 0\n", r"'insight.k' must be a positive integer"),

@@ -155,7 +155,11 @@ def _expect(value: Any, types: type | tuple[type, ...], key: str, source: str, w
 
 def _choice(value: Any, choices: tuple[str, ...], key: str, source: str) -> str:
     if not isinstance(value, str) or value not in choices:
-        raise SpecError(f"{source}: '{key}' must be one of {' | '.join(choices)}, got {value!r}")
+        near = (
+            difflib.get_close_matches(value, list(choices), n=1, cutoff=0.6) if isinstance(value, str) else []
+        )
+        hint = f"; did you mean '{near[0]}'?" if near else ""
+        raise SpecError(f"{source}: '{key}' must be one of {' | '.join(choices)}, got {value!r}{hint}")
     return value
 
 
