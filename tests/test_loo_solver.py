@@ -137,6 +137,25 @@ def test_a_row_off_the_support_set_that_frees_the_intercept_is_refitted():
     assert np.array_equal(result.loo_code, reference)
 
 
+def test_a_tie_in_a_reused_pair_machine_goes_to_libsvm():
+    """Three classes on a 1-D grid, linear kernel, C = 0.01: the machine of classes 0 and 2 has w = 0 and
+    b = 0, so its decision value at row 17 (class 1, not in that machine) is an exact tie. A refit without
+    row 17 reuses that machine; libsvm's vote at 0 goes to the second class (class 2), which decides row
+    17's LOO prediction. The reused machine's tie must send the refit to libsvm too.
+    Reference: scikit-learn's LeaveOneOut with SVC (one-vs-one, libsvm's vote)."""
+    x = [1.0, 0.5, 0.5, 1.5, -1.0, -0.5, -1.5, -0.0, 1.0, -0.0, 0.5, -2.0, 0.0, -1.0, 2.0, 1.0, 1.0]
+    X = np.array([*x, -0.0, 0.5]).reshape(-1, 1)
+    y = np.array([2, 1, 1, 2, 0, 0, 0, 2, 0, 2, 1, 0, 0, 0, 2, 2, 1, 1, 2])
+    learner = SVMLearner(kernel="linear", C=0.01)
+    model = learner.fit(X, y)
+    result = exact_loo(model, learner.refit_problem())
+    reference = cross_val_predict(_svc(learner), X, y, cv=LeaveOneOut())
+    assert reference[17] == 2
+    assert np.array_equal(result.loo_code, reference)
+    sv = np.flatnonzero(model.support)
+    assert np.array_equal(result.flip_count[sv], _flips(X, y, learner, model.prediction, sv))
+
+
 def test_near_flat_intercepts_in_one_dimension():
     """Near-flat intercepts (the kind of case CI found earlier, see test_loo_reference): 1-D linear data
     with two clusters far apart and C large, where without a bounded row the optimal intercept can be a

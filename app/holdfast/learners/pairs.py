@@ -154,11 +154,16 @@ def refit_pairs(
     ``row`` has a non-zero weight are warm-started without it, the others are reused. Returns None when a
     refit's intercept is not unique (``unique(ypm, g, c, intercept)`` is False) or a refitted machine's
     decision value is within ``tie(sum alpha, max K)`` of 0; the caller then solves the whole problem with
-    libsvm."""
+    libsvm. A machine without ``row`` is reused as it is, but also there a value within ``tie`` of 0 sends
+    the refit to libsvm: whether libsvm's solve of the same machine in the smaller problem rounds it to the
+    same sign is not known (an exact tie such as w = 0, b = 0 on a 1-D grid: libsvm's vote at 0 goes to
+    the second class)."""
     ovo = ovo_full.copy()
     for k, s in enumerate(states):
         pos = int(np.searchsorted(s.idx, row))
         if pos >= len(s.idx) or s.idx[pos] != row or s.alpha[pos] <= 0:
+            if np.min(np.abs(ovo[:, k])) < tie(float(s.alpha.sum()), float(s.qd.max())):  # type: ignore[operator]
+                return None
             continue
         alpha, grad, c = s.alpha.copy(), s.grad.copy(), s.c.copy()
         rho, _ = warm.refit_without(kernel, s.idx, s.ypm, c, alpha, grad, pos, eps, False, s.qd, s.near)
