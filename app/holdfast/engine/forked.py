@@ -111,12 +111,6 @@ def _pool(problem: RefitProblem, n_jobs: int) -> Iterator[ProcessPoolExecutor]:
                     proc.join(timeout=5)
 
 
-class _WorkerDied(Exception):
-    def __init__(self, left: list[list[int]]) -> None:
-        super().__init__("a refit worker process died")
-        self.left = left
-
-
 def refit_on_workers(
     problem: RefitProblem,
     chunks: list[list[int]],
@@ -127,25 +121,23 @@ def refit_on_workers(
     """Refit the rows of ``chunks`` on ``n_jobs`` forked workers, passing outcomes to ``on_results`` as they
     finish; checks ``cancel`` between results (raises :class:`Cancelled`).
 
-    Returns the chunks left undone when a worker died (killed by the system, e.g. for memory), for the
-    caller to refit another way so that no refit is lost; [] when all are done.
+    Returns the chunks left undone when a worker died (killed by the system, e.g. for memory; the pool has
+    then ended the others), for the caller to refit another way so that no refit is lost; [] when all are
+    done.
     """
-    try:
-        with _pool(problem, n_jobs) as pool:
-            pending: dict[Future[list[RefitOutcome]], list[int]] = {
-                pool.submit(_refit_rows, chunk): chunk for chunk in chunks
-            }
-            while pending:
-                finished, _ = wait(pending, timeout=0.1, return_when=FIRST_COMPLETED)
-                for fut in finished:
-                    try:
-                        outcomes = fut.result()
-                    except BrokenProcessPool:
-                        raise _WorkerDied(list(pending.values())) from None
-                    del pending[fut]
-                    on_results(outcomes)
-                if cancel():
-                    raise Cancelled()
-    except _WorkerDied as died:
-        return died.left
+    with _pool(problem, n_jobs) as pool:
+        pending: dict[Future[list[RefitOutcome]], list[int]] = {
+            pool.submit(_refit_rows, chunk): chunk for chunk in chunks
+        }
+        while pending:
+            finished, _ = wait(pending, timeout=0.1, return_when=FIRST_COMPLETED)
+            for fut in finished:
+                try:
+                    outcomes = fut.result()
+                except BrokenProcessPool:
+                    return list(pending.values())
+                del pending[fut]
+                on_results(outcomes)
+            if cancel():
+                raise Cancelled()
     return []

@@ -116,7 +116,7 @@ def dissent_width(m: int, k: int) -> int:
 
 
 def multiscale_dissent(
-    X: np.ndarray, y: np.ndarray, k: int, neighbours: np.ndarray | None = None, n_jobs: int | None = None
+    X: np.ndarray, y: np.ndarray, k: int, neighbours: np.ndarray | None = None
 ) -> np.ndarray:
     """Neighbour dissent averaged over ``DISSENT_SCALES`` times ``k`` nearest neighbours.
 
@@ -130,8 +130,6 @@ def multiscale_dissent(
         The spec's neighbour count.
     neighbours : array of shape (m, dissent_width(m, k)), optional
         The rows' nearest neighbours, when already found (``NeighbourResult.indices``); else searched.
-    n_jobs : int, optional
-        Parallel jobs of the search.
 
     Returns
     -------
@@ -142,7 +140,7 @@ def multiscale_dissent(
     m = len(y)
     widest = dissent_width(m, k)
     if neighbours is None:
-        neighbours = neighbour_dissent(X, y, k=widest, n_jobs=n_jobs).indices
+        neighbours = neighbour_dissent(X, y, k=widest).indices
     if neighbours.shape[1] < widest:
         raise ValueError(f"need {widest} neighbours per row, got {neighbours.shape[1]}")
     other = np.asarray(y)[neighbours[:, :widest]] != np.asarray(y)[:, None]

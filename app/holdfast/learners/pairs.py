@@ -141,6 +141,18 @@ class PairModel:
         return ovr_from_ovo(ovo, self.n_classes)
 
 
+def tied_machines(states: list[PairState], ovo_full: np.ndarray, tie: object) -> np.ndarray:
+    """Per machine: a full-model decision value within ``tie(sum alpha, max K)`` of 0 (see
+    :func:`refit_pairs`)."""
+    return np.array(
+        [
+            np.min(np.abs(ovo_full[:, k])) < tie(float(s.alpha.sum()), float(s.qd.max()))  # type: ignore[operator]
+            for k, s in enumerate(states)
+        ],
+        dtype=bool,
+    )
+
+
 def refit_pairs(
     kernel: smo.Kernel,
     states: list[PairState],
@@ -149,20 +161,21 @@ def refit_pairs(
     eps: float,
     unique: object,
     tie: object,
+    tied: np.ndarray | None = None,
 ) -> np.ndarray | None:
     """The ovo decision values of every training row after a refit without ``row``: the machines where
     ``row`` has a non-zero weight are warm-started without it, the others are reused. Returns None when a
     refit's intercept is not unique (``unique(ypm, g, c, intercept)`` is False) or a refitted machine's
     decision value is within ``tie(sum alpha, max K)`` of 0; the caller then solves the whole problem with
-    libsvm. A machine without ``row`` is reused as it is, but also there a value within ``tie`` of 0 sends
-    the refit to libsvm: whether libsvm's solve of the same machine in the smaller problem rounds it to the
-    same sign is not known (an exact tie such as w = 0, b = 0 on a 1-D grid: libsvm's vote at 0 goes to
-    the second class)."""
+    libsvm. A machine without ``row`` is reused as it is, but also when it is ``tied``
+    (:func:`tied_machines`) the refit goes to libsvm: whether libsvm's solve of the same machine in the
+    smaller problem rounds a value at a tie to the same sign is not known (an exact tie such as w = 0,
+    b = 0 on a 1-D grid: libsvm's vote at 0 goes to the second class)."""
     ovo = ovo_full.copy()
     for k, s in enumerate(states):
         pos = int(np.searchsorted(s.idx, row))
         if pos >= len(s.idx) or s.idx[pos] != row or s.alpha[pos] <= 0:
-            if np.min(np.abs(ovo[:, k])) < tie(float(s.alpha.sum()), float(s.qd.max())):  # type: ignore[operator]
+            if tied is not None and tied[k]:
                 return None
             continue
         alpha, grad, c = s.alpha.copy(), s.grad.copy(), s.c.copy()

@@ -32,7 +32,7 @@ from holdfast.learners import smo, smo_linear, warm
 from holdfast.learners.base import ESSENTIAL_CHANGE, RefitOutcome, refit_outcome
 from holdfast.learners.face import FaceInverse
 from holdfast.learners.kernels import kernel_matrix, submatrix
-from holdfast.learners.pairs import PairState, ovr_from_ovo, refit_pairs, vote_codes
+from holdfast.learners.pairs import PairState, ovr_from_ovo, refit_pairs, tied_machines, vote_codes
 
 #: Stopping tolerance of our own solver (full fit and warm refits). libsvm's default in holdfast is 1e-6;
 #: a warm refit stops at a different point of the tolerance region than a cold solve would, so both are
@@ -104,8 +104,9 @@ def intercept_movers(
     t = ypm - g
     pos = ypm > 0
     kinks = np.unique(t)
-    tp, cp = np.sort(t[pos]), c[pos][np.argsort(t[pos])]
-    tn, cn = np.sort(t[~pos]), c[~pos][np.argsort(t[~pos])]
+    op, on = np.argsort(t[pos]), np.argsort(t[~pos])
+    tp, cp = t[pos][op], c[pos][op]
+    tn, cn = t[~pos][on], c[~pos][on]
     cum_p = np.concatenate([[0.0], np.cumsum(cp)])
     cum_n = np.concatenate([[0.0], np.cumsum(cn)])
 
@@ -166,6 +167,8 @@ class SVMRefitProblem:
     #: more than two classes, our own solver: the one-vs-one machines and their decision values
     pairs: list[PairState] | None = None
     ovo_full: np.ndarray | None = None
+    #: per machine, a full-model decision value at a tie (pairs.tied_machines; computed at the first refit)
+    ovo_tied: np.ndarray | None = None
     #: the training matrix, for whole-problem fallbacks computed exactly as the reference computes them
     #: (with ``kernel_args``)
     X_ref: np.ndarray | None = None
@@ -428,7 +431,11 @@ class SVMRefitProblem:
         (holdfast.learners.pairs); the whole problem with libsvm when an intercept is not unique."""
         assert self.solver is not None and self.pairs is not None and self.ovo_full is not None
         if self.ties == "libsvm":
-            ovo = refit_pairs(self.solver, self.pairs, self.ovo_full, row, self.eps, self._unique, self._tie)
+            if self.ovo_tied is None:
+                self.ovo_tied = tied_machines(self.pairs, self.ovo_full, self._tie)
+            ovo = refit_pairs(
+                self.solver, self.pairs, self.ovo_full, row, self.eps, self._unique, self._tie, self.ovo_tied
+            )
         else:  # the optimum's signs and intercept (libsvm's rule on our solution): no libsvm solve
             ovo = refit_pairs(self.solver, self.pairs, self.ovo_full, row, self.eps, _always, _never)
         if ovo is None:
