@@ -137,6 +137,30 @@ def test_a_row_off_the_support_set_that_frees_the_intercept_is_refitted():
     assert np.array_equal(result.loo_code, reference)
 
 
+@pytest.mark.parametrize(("far", "row_is_support"), [([3.0, 3.5], False), ([5.0, 5.5, 6.0], True)])
+def test_a_row_that_frees_a_pair_machines_intercept_is_refitted_with_that_machine(
+    far: list[float], row_is_support: bool
+) -> None:
+    """The two-class case above as the machine of classes 0 and 1, with a third class further along the
+    line (linear kernel, C = 0.01). Row 2 has alpha = 0 in that machine and sits at the end of its optimal
+    intercept interval: without it libsvm's intercept of that machine moves and its vote at row 2 goes to
+    class 1, which decides row 2's LOO prediction. With the third class at 3.0 and 3.5 row 2 is off every
+    machine's support set (it must be refitted at all); at 5.0-6.0 it is a support row of the machine of
+    classes 0 and 2 (its refit must re-solve the machine of 0 and 1, not reuse it).
+    Reference: scikit-learn's LeaveOneOut with SVC (one-vs-one, libsvm's vote)."""
+    X = np.array([0.0, -0.0, 0.5, 0.0, -0.5, 0.5, 1.5, 1.0, 0.0, 1.5, 0.0, *far]).reshape(-1, 1)
+    y = np.array([0, 0, 0, 1, 0, 1, 0, 0, 1, 1, 1] + [2] * len(far))
+    learner = SVMLearner(kernel="linear", C=0.01)
+    model = learner.fit(X, y)
+    assert bool(model.support[2]) is row_is_support and 2 in model.loo_candidates()
+    result = exact_loo(model, learner.refit_problem())
+    reference = cross_val_predict(_svc(learner), X, y, cv=LeaveOneOut())
+    assert reference[2] == 1 and model.prediction[2] == 0  # the case itself
+    assert np.array_equal(result.loo_code, reference)
+    sv = np.flatnonzero(model.support)
+    assert np.array_equal(result.flip_count[sv], _flips(X, y, learner, model.prediction, sv))
+
+
 def test_a_tie_in_a_reused_pair_machine_goes_to_libsvm():
     """Three classes on a 1-D grid, linear kernel, C = 0.01: the machine of classes 0 and 2 has w = 0 and
     b = 0, so its decision value at row 17 (class 1, not in that machine) is an exact tie. A refit without

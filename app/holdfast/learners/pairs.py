@@ -38,6 +38,13 @@ class PairState:
     rho: float
     #: rows (positions) a warm refit's SMO works on first: y f(x) < 1 + slack under the full machine
     near: np.ndarray | None = None
+    #: rows (positions) with alpha = 0 whose removal can still move this machine's intercept
+    #: (``svm_refit.intercept_movers``): a refit without one re-solves the machine instead of reusing it
+    movers: np.ndarray | None = None
+
+    def intercept_parts(self) -> tuple[np.ndarray, float]:
+        """(decision values of the machine's own rows, intercept) from the solution: f = y (G + 1) - rho."""
+        return self.ypm * (self.grad + 1.0) - self.rho, -self.rho
 
     def coef(self) -> tuple[np.ndarray, np.ndarray]:
         """(training rows of the support rows, y alpha of each)."""
@@ -164,7 +171,8 @@ def refit_pairs(
     tied: np.ndarray | None = None,
 ) -> np.ndarray | None:
     """The ovo decision values of every training row after a refit without ``row``: the machines where
-    ``row`` has a non-zero weight are warm-started without it, the others are reused. Returns None when a
+    ``row`` has a non-zero weight, or whose intercept it can move (``PairState.movers``), are warm-started
+    without it, the others are reused. Returns None when a
     refit's intercept is not unique (``unique(ypm, g, c, intercept)`` is False) or a refitted machine's
     decision value is within ``tie(sum alpha, max K)`` of 0; the caller then solves the whole problem with
     libsvm. A machine without ``row`` is reused as it is, but also when it is ``tied``
@@ -174,7 +182,9 @@ def refit_pairs(
     ovo = ovo_full.copy()
     for k, s in enumerate(states):
         pos = int(np.searchsorted(s.idx, row))
-        if pos >= len(s.idx) or s.idx[pos] != row or s.alpha[pos] <= 0:
+        inside = pos < len(s.idx) and s.idx[pos] == row
+        mover = inside and s.movers is not None and pos in s.movers
+        if not inside or (s.alpha[pos] <= 0 and not mover):
             if tied is not None and tied[k]:
                 return None
             continue

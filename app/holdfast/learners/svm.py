@@ -322,13 +322,17 @@ class SVMLearner:
         alpha[clf.support_] = coef.max(axis=0)
         bounded = support & np.isclose(alpha, row_c, rtol=1e-8, atol=0.0)
         margin = signed_margins(decision, y)
-        refit_rows = None
-        if n_classes == 2:  # rows off the support set whose removal can free the intercept: refit them too
+        # rows off the support set whose removal can free the intercept (of a one-vs-one machine): refit
+        # them too
+        movers = np.empty(0, dtype=np.int64)
+        if n_classes == 2:
             ypm = np.where(y == 1, 1.0, -1.0)
             intercept = float(np.ravel(clf.intercept_)[0])
-            movers = intercept_movers(ypm, decision, row_c, support, intercept, 100.0 * self.tol)
-            if movers.size:
-                refit_rows = np.union1d(np.flatnonzero(support), movers)
+            movers = intercept_movers(ypm, decision, row_c, support, intercept, self._mover_eps())
+        elif problem.pairs is not None:
+            movers = np.concatenate([s.idx[s.movers] for s in problem.pairs if s.movers is not None])
+            movers = movers[~support[movers]]
+        refit_rows = np.union1d(np.flatnonzero(support), movers) if movers.size else None
         extras: dict[str, Any] = {"kernel_r2": self._kernel_r2(K, X, gamma), "decision": decision}
         extras["ties"] = self.ties_
         extras["tie_allowance"] = tie_tolerance(self.tol, float(alpha.sum()), self._k_max(K, X))
@@ -467,12 +471,20 @@ class SVMLearner:
         """More than two classes: one-vs-one machines with our own solver (holdfast.learners.pairs); the
         solutions are kept in ``problem`` so that a refit re-solves only the machines a row is in."""
         states = fit_pairs(kernel, y, row_c.astype(np.float64), n_classes, WARM_TOL)
+        for s in states:  # rows off a machine's support set that can move its intercept (see fit)
+            dec, intercept = s.intercept_parts()
+            s.movers = intercept_movers(s.ypm, dec, s.c, s.alpha > 0, intercept, self._mover_eps())
         problem.solver = kernel
         problem.pairs = states
         problem.ovo_full = np.column_stack(
             [pair_decision(kernel, *s.coef(), s.rho) for s in states]  # all training rows, pair order
         )
         return PairModel.from_states(states, n_classes, len(y), problem.ovo_full, self._args())
+
+    def _mover_eps(self) -> float:
+        """How close a row's kink must be to an end of the optimal intercept interval to be refitted
+        (``svm_refit.intercept_movers``): a wide margin over the solver's tolerance."""
+        return 100.0 * self.tol
 
     def _args(self) -> tuple[str, float, int, float]:
         return (self.kernel, self.gamma_, self.degree, self.coef0)
