@@ -21,7 +21,13 @@ from sklearn.svm import SVC
 from holdfast.data.prepare import prepare
 from holdfast.data.spec import spec_from_text
 from holdfast.engine.scan import analyse
-from holdfast.insight.flags import DISSENT_SHARE, FLAG_REASONS, HEAVY_FLIP_MIN, compute_flags
+from holdfast.insight.flags import (
+    DISSENT_SHARE,
+    FLAG_REASONS,
+    HEAVY_FLIP_MIN,
+    compute_flags,
+    heavy_flip_threshold,
+)
 
 
 def _scan(frame: pd.DataFrame, learner: str = "", k: int = 5, split: bool = False, scale: str = "standard"):
@@ -145,6 +151,34 @@ def test_heavy_flip_fires_from_the_threshold_on():
     # the case has rows on both sides of the threshold, and rows that flip some but too few others
     assert (ref >= HEAVY_FLIP_MIN).any()
     assert ((ref > 0) & (ref < HEAVY_FLIP_MIN)).any()
+
+
+def test_heavy_flip_in_a_dense_boundary_marks_only_rows_flipping_three_times_the_usual():
+    """Where every support row flips several others (a dense boundary region), heavy_flip needs three times
+    the median support row's flip count: here the median is 5, so 15 flips and more. A row off the support
+    set (flip count 0) does not count towards the median."""
+    flips = np.array([1, 2, 3, 4, 5, 5, 5, 6, 7, 9, 14, 15, 40, 0])  # the last row is off the support set
+    n = len(flips)
+    frame = pd.DataFrame(
+        {
+            "label": ["a"] * n,
+            "prediction": ["a"] * n,
+            "loo_miss": False,
+            "bounded": True,
+            "support": [True] * (n - 1) + [False],
+            "flip_count": flips,
+            "held_out": False,
+        }
+    )
+    assert heavy_flip_threshold(flips[:-1]) == 15
+    out = compute_flags(frame)
+    assert np.flatnonzero(out["flag_heavy_flip"].to_numpy()).tolist() == [11, 12]
+    # where the median support row flips 0 or 1 the threshold is the fixed one
+    assert heavy_flip_threshold(np.array([0, 0, 0, 1, 1, 4])) == HEAVY_FLIP_MIN
+    assert heavy_flip_threshold(np.array([1, 1, 1, 2, 6])) == HEAVY_FLIP_MIN
+    assert heavy_flip_threshold(np.array([], dtype=np.int64)) == HEAVY_FLIP_MIN
+    # a half-integer median rounds the threshold up: 3 x 1.5 = 4.5 -> 5
+    assert heavy_flip_threshold(np.array([1, 1, 2, 2])) == 5
 
 
 def test_held_out_rows_get_no_flags():

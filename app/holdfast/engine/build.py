@@ -16,7 +16,7 @@ from holdfast.engine.loo import LooResult
 from holdfast.engine.summary_model import bounds_summary, family_summary, loo_exact_mask
 from holdfast.insight.consensus import linear_label_logit
 from holdfast.insight.explain import explain
-from holdfast.insight.flags import FLAG_REASONS, TWIN_TOL, compute_flags
+from holdfast.insight.flags import FLAG_REASONS, TWIN_TOL, compute_flags, flip_reference, heavy_flip_threshold
 from holdfast.insight.score import dissent_width, multiscale_dissent, rank_rows, suspicion_score
 from holdfast.learners.base import FittedModel, signed_margins
 
@@ -183,7 +183,8 @@ def build_rows(
         }
     )
     rows = pd.concat([rows, evidence.reset_index(drop=True)], axis=1)
-    rows = compute_flags(rows)
+    reference = model.support & ~pend[tr]  # the support rows' flip counts known so far
+    rows = compute_flags(rows, heavy_flip_threshold(loo.flip_count[reference]))
     rows["score"] = suspicion_score(rows, margin_unit=margin_unit(model))
     rows["rank"] = rank_rows(rows["score"].to_numpy())
     if pending is not None:
@@ -279,6 +280,7 @@ def build_findings(
         "family": family_summary(model, m, loo),
         "solver_tol": model.params.get("tol"),
         "flags": {name: int(rows[f"flag_{name}"].sum()) for name in FLAG_REASONS},
+        "heavy_flip_min": heavy_flip_threshold(flip_reference(rows)),
         "bounds": bounds,
         "refits": int(loo.refits),
         "resumed_refits": int(loo.resumed),

@@ -23,7 +23,7 @@ from holdfast.errors import UserError
 from holdfast.learners.base import RefitOutcome
 
 #: Bump when the cached findings change shape (new columns or summary keys), so old caches are not reused.
-CACHE_FORMAT = 7
+CACHE_FORMAT = 8
 
 
 def cache_root() -> Path:

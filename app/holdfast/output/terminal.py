@@ -59,7 +59,12 @@ def summary_text(summary: dict[str, Any]) -> str:
         pairs.append(("held-out errors", f"{held['errors']} of {held['n']}  ({held['error_rate']:.4f})"))
     flags = {k: v for k, v in (summary.get("flags") or {}).items() if v}
     if flags:
-        pairs.append(("flags", ", ".join(f"{safe_text(k)} {int(v)}" for k, v in flags.items())))
+        least = summary.get("heavy_flip_min")
+        shown = [
+            f"{safe_text(k)} {int(v)}" + (f" (>= {int(least)} flips)" if k == "heavy_flip" and least else "")
+            for k, v in flags.items()
+        ]
+        pairs.append(("flags", ", ".join(shown)))
     ties = ties_line(family.get("ties"))
     if ties:
         pairs.append(("near-zero signs", ties))
