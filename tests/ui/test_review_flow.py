@@ -434,7 +434,7 @@ async def test_what_if_says_loo_against_edited_labels_is_partly_self_fulfilling(
         assert held[screen.table.cursor_row]  # type: ignore[index]
         await pilot.press("w")
         await until(pilot, lambda: isinstance(app.screen, WhatIfScreen), timeout=120)
-        await pilot.pause()
+        await until(pilot, lambda: "honest check" in " ".join(screen_text(app).split()))  # painted
         text = " ".join(screen_text(app).split())
         assert "partly self-fulfilling" in text and "held-out error" in text and "honest check" in text
         changed = app.screen.query_one("#what-if-changed", RowTable)
