@@ -105,6 +105,33 @@ def small_problems(draw):
     return X, y, kernel, C, weight
 
 
+@st.composite
+def small_three_class_problems(draw):
+    """As :func:`small_problems` with three classes: bands of the first coordinate plus noise, so that
+    the one-vs-one machines share rows at ties and near-flat intercepts (the kind of case where a reused
+    machine or a row off the support set decided a LOO vote)."""
+    n = draw(st.integers(min_value=9, max_value=30))
+    p = draw(st.integers(min_value=1, max_value=2))
+    seed = draw(st.integers(min_value=0, max_value=2**31 - 1))
+    rng = np.random.default_rng(seed)
+    X = rng.normal(size=(n, p)) * 1.5
+    if draw(st.booleans()):
+        X = np.round(X * 2) / 2
+    noise = draw(st.floats(min_value=0.0, max_value=1.5))
+    y = np.clip(np.round(X[:, 0] + noise * rng.normal(size=n)).astype(np.int64) + 1, 0, 2)
+    if draw(st.booleans()):  # a class far along the line
+        y[X[:, 0] > 1.0] = 2
+        X[y == 2, 0] += draw(st.sampled_from([1.0, 3.0, 6.0]))
+    for c in (0, 1, 2):  # every LOO fold of the reference needs every class
+        short = 2 - int((y == c).sum())
+        if short > 0:
+            y[np.flatnonzero(np.bincount(y, minlength=3)[y] > 2)[:short]] = c
+    kernel = draw(st.sampled_from(["linear", "rbf", "poly"]))
+    C = draw(st.sampled_from([0.01, 0.1, 1.0, 10.0, 100.0]))
+    weight = draw(st.sampled_from(["none", "balanced"]))
+    return X, y, kernel, C, weight
+
+
 @settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(small_problems())
 def test_warm_refits_match_leave_one_out_on_random_data(problem):
@@ -113,6 +140,22 @@ def test_warm_refits_match_leave_one_out_on_random_data(problem):
     model = learner.fit(X, y)
     # (a full fit with a training decision value at a tie hands the whole model to libsvm; either way
     # the LOO must equal the reference)
+    result = exact_loo(model, learner.refit_problem())
+    reference = cross_val_predict(_svc(learner), X, y, cv=LeaveOneOut())
+    assert int((result.loo_code != reference).sum()) == 0
+    sv = np.flatnonzero(model.support)
+    assert np.array_equal(result.flip_count[sv], _flips(X, y, learner, model.prediction, sv))
+
+
+@settings(max_examples=80, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(small_three_class_problems())
+def test_pair_refits_match_leave_one_out_on_random_three_class_data(problem):
+    """Three classes: the refits of the one-vs-one machines a row is in (the others reused) against
+    scikit-learn's LeaveOneOut (libsvm's one-vs-one vote), and flip counts against full refits."""
+    X, y, kernel, C, weight = problem
+    assert np.all(np.bincount(y, minlength=3) >= 2)
+    learner = SVMLearner(kernel=kernel, C=C, degree=2, coef0=1.0, class_weight=weight)
+    model = learner.fit(X, y)
     result = exact_loo(model, learner.refit_problem())
     reference = cross_val_predict(_svc(learner), X, y, cv=LeaveOneOut())
     assert int((result.loo_code != reference).sum()) == 0
