@@ -204,6 +204,21 @@ def test_a_row_that_frees_a_pair_machines_intercept_is_refitted_with_that_machin
     assert np.array_equal(result.flip_count[sv], _flips(X, y, learner, model.prediction, sv))
 
 
+def test_a_tie_above_the_precompute_limit_is_fitted_by_libsvm_from_x():
+    """Above the precompute limit (here lowered to 0 rows) a linear two-class fit works from X; a training
+    decision value at a tie hands the full model to libsvm computing the kernel from X, whose parameters
+    already carried the kernel (this raised "got multiple values for keyword argument 'kernel'"; found by a
+    random search over small data). Reference: scikit-learn's LeaveOneOut with SVC."""
+    X = np.array([0.0, -0.0, 0.5, 0.0, -0.5, 0.5, 1.5, 1.0, -0.5, -1.5, -0.5]).reshape(-1, 1)
+    y = np.array([1, 0, 1, 0, 0, 1, 1, 1, 0, 0, 0])
+    learner = SVMLearner(kernel="linear", C=0.1, precompute_max_rows=0)
+    model = learner.fit(X, y)
+    assert learner.svc_on_X_  # the tie path
+    result = exact_loo(model, learner.refit_problem())
+    reference = cross_val_predict(_svc(learner), X, y, cv=LeaveOneOut())
+    assert np.array_equal(result.loo_code, reference)
+
+
 def test_a_tie_in_a_reused_pair_machine_goes_to_libsvm():
     """Three classes on a 1-D grid, linear kernel, C = 0.01: the machine of classes 0 and 2 has w = 0 and
     b = 0, so its decision value at row 17 (class 1, not in that machine) is an exact tie. A refit without

@@ -278,8 +278,8 @@ class SVMLearner:
             if seed_svc is not None:  # already fitted on X above the limit
                 clf = seed_svc
             else:
-                clf = SVC(kernel=self.kernel, gamma=gamma, degree=self.degree, coef0=self.coef0, **svc_params)
-                clf.fit(X, y)
+                on_x = {"kernel": self.kernel, "gamma": gamma, "degree": self.degree, "coef0": self.coef0}
+                clf = SVC(**{**svc_params, **on_x}).fit(X, y)  # svc_params has them above the limit
             self.svc_on_X_ = True
         elif own is not None:
             clf = own
