@@ -209,7 +209,11 @@ def test_header_fields_follow_the_findings(scan, ctx):
         np.testing.assert_equal([d.margin, d.score], [r["margin"], r["score"]])
         np.testing.assert_equal([d.loo_margin, d.linear_logit], [r["loo_margin"], r["linear_logit"]])
         names = [s for s in r["flag_names"].split(",") if s]
-        assert d.flags == [(name, FLAG_REASONS[name]) for name in names]
+        least = scan.findings.summary["heavy_flip_min"]
+        extra = {"heavy_flip": f" ({least} or more)"}
+        assert d.flags == [(name, FLAG_REASONS[name] + extra.get(name, "")) for name in names]
+        if "heavy_flip" in names:
+            assert d.flip_count >= least
 
 
 def test_held_out_row_with_an_unseen_label(scan, ctx):

@@ -366,6 +366,14 @@ class DetailContext:
             }
         )
 
+    def _reason(self, name: str) -> str:
+        """A flag's reason; ``heavy_flip``'s with the flip count it took in this scan."""
+        reason = FLAG_REASONS.get(name, "")
+        least = self.scan.findings.summary.get("heavy_flip_min")
+        if name == "heavy_flip" and least:
+            reason += f" ({int(least)} or more)"
+        return reason
+
     def row_detail(self, position: int, k: int | None = None) -> RowDetail:
         """The :class:`RowDetail` of input row ``position`` (0-based), with ``k`` neighbours (default:
         the spec's ``insight.k``)."""
@@ -391,7 +399,7 @@ class DetailContext:
             flip_count=int(a["flip_count"][position]),
             score=float(a["score"][position]),
             rank=int(a["rank"][position]),
-            flags=[(name, FLAG_REASONS.get(name, "")) for name in names],
+            flags=[(name, self._reason(name)) for name in names],
             features=features,
             neighbours=self.neighbours(position, k),
             flipped=self.flipped(position),
