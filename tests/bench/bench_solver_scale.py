@@ -17,7 +17,9 @@ RSS, or the sampled PSS of it and its forked refit workers when larger, see ``_P
    the time of one full SVC fit on the same data (ratio = fit+LOO over it) and naive LOO *estimated*
    from ``--naive-sample`` timed SVC refits (times m; marked ``est``), and the peak memory.
    ``--linear-sizes`` adds linear-kernel cases (20 features, 10 informative; ``--linear-naive-sample``
-   timed refits for the naive estimate, since one SVC fit there takes minutes). ``--scan-sizes`` (RBF)
+   timed refits for the naive estimate, since one SVC fit there takes minutes). ``--multi-sizes`` adds
+   three-class RBF cases (``n_classes=3``; our one-vs-one machines, a refit re-solving only those the row
+   is in; ``--multi-flip-sample`` flip counts checked against full SVC refits). ``--scan-sizes`` (RBF)
    also times the whole ``holdfast scan`` command at those sizes, against one SVC fit.
 
 Run: ``PYTHONPATH=app python tests/bench/bench_solver_scale.py [--sizes 2000,5000,10000] [--quick]``.
@@ -107,6 +109,8 @@ def _data(m: int, kind: str) -> tuple[np.ndarray, np.ndarray]:
         extra["weights"] = [0.97]
     elif kind.startswith("overlapping"):
         extra["class_sep"] = 0.5
+    elif kind.startswith("three-class"):
+        extra["n_classes"] = 3
     p, informative = (20, 10) if kind.endswith("linear") else (10, 6)
     X, y = make_classification(
         n_samples=m, n_features=p, n_informative=informative, flip_y=0.05, random_state=0, **extra
@@ -329,6 +333,12 @@ def main() -> None:
     parser.add_argument("--linear-sizes", default="", help="sizes of linear-kernel cases (20 features)")
     parser.add_argument("--linear-naive-sample", type=int, default=3, help="timed SVC refits per linear case")
     parser.add_argument(
+        "--multi-sizes", default="", help="sizes of three-class RBF cases (one-vs-one machines of our own)"
+    )
+    parser.add_argument(
+        "--multi-flip-sample", type=int, default=5, help="flip counts checked per three-class case"
+    )
+    parser.add_argument(
         "--svc-max-rows",
         type=int,
         default=20_000,
@@ -358,6 +368,8 @@ def main() -> None:
         cases += [(args.side_size, k, "0", str(args.naive_sample), "0") for k in side if args.side_size > 0]
         sample = str(args.linear_naive_sample)
         cases += [(int(s), "base-linear", "0", sample, "0") for s in args.linear_sizes.split(",") if s]
+        multi = (str(args.naive_sample), str(args.multi_flip_sample))
+        cases += [(int(s), "three-class", "0", *multi) for s in args.multi_sizes.split(",") if s]
     print(
         "| data | m | d | fit s | LOO s | ms/refit | cold | SVC fit s | x fit | naive s | x naive | "
         "LOO mismatches | flip mismatches | peak MB |"
