@@ -4,8 +4,10 @@ libsvm (and so scikit-learn's SVC) trains one two-class machine per pair of clas
 rows of those two classes, with class a as +1 (Knerr, Personnaz & Dreyfus 1990; Hsu & Lin 2002, "A
 comparison of methods for multiclass support vector machines", IEEE TNN 13). A row enters only the k-1
 machines of its own class, and removing it leaves every machine where its dual weight is 0 unchanged
-(the same argument as for the support rows of one machine, Vapnik 1995), so a refit without it re-solves
-only the machines where it is a support row, each warm-started (:func:`holdfast.learners.warm.refit_without`).
+(the same argument as for the support rows of one machine, Vapnik 1995) except where it sits at an end of
+the machine's optimal intercept interval (``PairState.movers``), so a refit without it re-solves only the
+machines where it is a support row or such a row, each warm-started
+(:func:`holdfast.learners.warm.refit_without`).
 
 Decision values follow scikit-learn's SVC with ``decision_function_shape="ovr"``: votes of the pairwise
 machines (f_ab > 0 votes for a) plus the sum of the pairwise decision values squashed into (-1/3, 1/3)
@@ -21,6 +23,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from holdfast.learners import smo, warm
+from holdfast.learners.face import FaceInverse
 
 
 @dataclass
@@ -41,6 +44,10 @@ class PairState:
     #: rows (positions) with alpha = 0 whose removal can still move this machine's intercept
     #: (``svm_refit.intercept_movers``): a refit without one re-solves the machine instead of reusing it
     movers: np.ndarray | None = None
+    #: training rows of the other classes (not in this machine), in training order
+    outside: np.ndarray | None = None
+    #: the inverse over the full machine's free rows for the refits' Newton steps (None: solved directly)
+    face: FaceInverse | None = None
 
     def intercept_parts(self) -> tuple[np.ndarray, float]:
         """(decision values of the machine's own rows, intercept) from the solution: f = y (G + 1) - rho."""
@@ -52,11 +59,18 @@ class PairState:
         return self.idx[sv], self.alpha[sv] * self.ypm[sv]
 
 
+#: The machines' face inverses (``PairState.face``: two blocks of |free rows|^2 values each) are built while
+#: their total stays within this; a machine beyond it solves its Newton steps directly (slower, the same
+#: results). Ten classes make 45 machines.
+PAIR_FACES_MAX_BYTES = 512 * 1024**2
+
+
 def fit_pairs(
     kernel: smo.Kernel, y: np.ndarray, c_row: np.ndarray, n_classes: int, eps: float, slack: float = 0.2
 ) -> list[PairState]:
     """Solve every one-vs-one machine with our solver (cold start), in libsvm's pair order."""
     out = []
+    budget = PAIR_FACES_MAX_BYTES
     for a in range(n_classes):
         for b in range(a + 1, n_classes):
             idx = np.flatnonzero((y == a) | (y == b))
@@ -64,7 +78,13 @@ def fit_pairs(
             c = c_row[idx].astype(np.float64)
             alpha, grad, rho, _ = smo.fit_dual(kernel, idx, ypm, c, eps)
             near = ypm * (ypm * (grad + 1.0) - rho) < 1.0 + slack
-            out.append(PairState(a, b, idx, ypm, c, alpha, grad, kernel.diag(idx), rho, near))
+            state = PairState(a, b, idx, ypm, c, alpha, grad, kernel.diag(idx), rho, near)
+            state.outside = np.flatnonzero((y != a) & (y != b))
+            size = 16 * int(np.count_nonzero((alpha > 0) & (alpha < c))) ** 2
+            if size <= budget:
+                state.face = FaceInverse.build(kernel, idx, ypm, alpha, c)
+                budget -= size if state.face is not None else 0
+            out.append(state)
     return out
 
 
@@ -148,6 +168,26 @@ class PairModel:
         return ovr_from_ovo(ovo, self.n_classes)
 
 
+def refitted_decision(
+    kernel: smo.Kernel, s: PairState, alpha: np.ndarray, grad: np.ndarray, rho: float, full: np.ndarray
+) -> np.ndarray:
+    """A refitted machine's decision values of every training row: for its own rows from the solver's
+    gradient (f = y (G + 1) - rho, as for two classes), for the other classes' rows as the full machine's
+    values plus the change, sum over the rows whose alpha changed of their y delta-alpha K(x_t, x), and the
+    change of the intercept (O(changed rows x m) instead of O(support rows x m); the same values up to
+    rounding)."""
+    out = np.empty(len(full))
+    out[s.idx] = s.ypm * (grad + 1.0) - rho
+    outside = s.outside
+    if outside is None:
+        outside = np.setdiff1d(np.arange(len(full)), s.idx, assume_unique=True)
+    if len(outside):
+        moved = np.flatnonzero(alpha != s.alpha)
+        step = (alpha[moved] - s.alpha[moved]) * s.ypm[moved]
+        out[outside] = full[outside] + kernel.combo(s.idx[moved], step, outside) - (rho - s.rho)
+    return out
+
+
 def tied_machines(states: list[PairState], ovo_full: np.ndarray, tie: object) -> np.ndarray:
     """Per machine: a full-model decision value within ``tie(sum alpha, max K)`` of 0 (see
     :func:`refit_pairs`)."""
@@ -172,7 +212,8 @@ def refit_pairs(
 ) -> np.ndarray | None:
     """The ovo decision values of every training row after a refit without ``row``: the machines where
     ``row`` has a non-zero weight, or whose intercept it can move (``PairState.movers``), are warm-started
-    without it, the others are reused. Returns None when a
+    without it (Newton steps from ``PairState.face``; decision values by :func:`refitted_decision`), the
+    others are reused. Returns None when a
     refit's intercept is not unique (``unique(ypm, g, c, intercept)`` is False) or a refitted machine's
     decision value is within ``tie(sum alpha, max K)`` of 0; the caller then solves the whole problem with
     libsvm. A machine without ``row`` is reused as it is, but also when it is ``tied``
@@ -189,13 +230,13 @@ def refit_pairs(
                 return None
             continue
         alpha, grad, c = s.alpha.copy(), s.grad.copy(), s.c.copy()
-        rho, _ = warm.refit_without(kernel, s.idx, s.ypm, c, alpha, grad, pos, eps, False, s.qd, s.near)
+        args = (eps, False, s.qd, s.near, s.face)
+        rho, _ = warm.refit_without(kernel, s.idx, s.ypm, c, alpha, grad, pos, *args)
         keep = np.arange(len(s.idx)) != pos
         g = (s.ypm * (grad + 1.0))[keep]
         if not unique(s.ypm[keep], g, c[keep], -rho):  # type: ignore[operator]
             return None
-        sv = np.flatnonzero(alpha > 0)
-        ovo[:, k] = pair_decision(kernel, s.idx[sv], alpha[sv] * s.ypm[sv], rho)
+        ovo[:, k] = refitted_decision(kernel, s, alpha, grad, rho, ovo_full[:, k])
         if np.min(np.abs(ovo[:, k])) < tie(float(alpha.sum()), float(s.qd.max())):  # type: ignore[operator]
             return None
     return ovo
