@@ -219,6 +219,27 @@ def test_a_tie_above_the_precompute_limit_is_fitted_by_libsvm_from_x():
     assert np.array_equal(result.loo_code, reference)
 
 
+def test_a_pair_machine_with_a_flat_intercept_is_libsvms():
+    """Found by the three-class property test: 1-D data, linear kernel, C = 100. Every alpha of the machine
+    of classes 1 and 2 is at its bound, so its optimal intercept is an interval, and libsvm's choice in it
+    depends on its final state: ours predicted row 9 as another class than libsvm's full fit, so every
+    refit (by libsvm) flipped row 9 against our full prediction, and 8 flip counts were one short. Such a
+    full model is now libsvm's own, and refits that reuse the machine go to libsvm too.
+    Reference: scikit-learn's SVC (full fit and refits without each row) and its LeaveOneOut."""
+    x = [-0.43661687, -0.27629385, 2.22521136, -0.56526116, 1.60328929, 2.36951669, 1.03380098, 0.09909319]
+    x += [-0.42171593, -0.35299293, -0.48897371, -0.22225144, 0.06695121, -0.63397532, 0.21807214]
+    x += [-1.20334629, -1.43325274, 2.07320365, -0.79432487, -0.3267105, -1.71412207, -0.62954417]
+    X = np.array([*x, 1.05334712, 0.98012332, -0.48927857]).reshape(-1, 1)
+    y = np.array([1, 1, 2, 1, 2, 2, 2, 2, 1, 2, 2, 2, 0, 0, 2, 0, 0, 2, 1, 0, 0, 1, 2, 2, 0])
+    learner = SVMLearner(kernel="linear", C=100.0)
+    model = learner.fit(X, y)
+    assert np.array_equal(model.prediction, _svc(learner).fit(X, y).predict(X))
+    result = exact_loo(model, learner.refit_problem())
+    assert np.array_equal(result.loo_code, cross_val_predict(_svc(learner), X, y, cv=LeaveOneOut()))
+    sv = np.flatnonzero(model.support)
+    assert np.array_equal(result.flip_count[sv], _flips(X, y, learner, model.prediction, sv))
+
+
 def test_a_tie_in_a_reused_pair_machine_goes_to_libsvm():
     """Three classes on a 1-D grid, linear kernel, C = 0.01: the machine of classes 0 and 2 has w = 0 and
     b = 0, so its decision value at row 17 (class 1, not in that machine) is an exact tie. A refit without

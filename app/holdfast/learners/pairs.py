@@ -188,16 +188,23 @@ def refitted_decision(
     return out
 
 
-def tied_machines(states: list[PairState], ovo_full: np.ndarray, tie: object) -> np.ndarray:
-    """Per machine: a full-model decision value within ``tie(sum alpha, max K)`` of 0 (see
-    :func:`refit_pairs`)."""
-    return np.array(
+def tied_machines(
+    states: list[PairState], ovo_full: np.ndarray, tie: object, unique: object | None = None
+) -> np.ndarray:
+    """Per machine: a full-model decision value within ``tie(sum alpha, max K)`` of 0, or (with
+    ``unique``) an intercept that is not unique, where libsvm's solve of the same machine may pick another
+    one (see :func:`refit_pairs`)."""
+    out = np.array(
         [
             np.min(np.abs(ovo_full[:, k])) < tie(float(s.alpha.sum()), float(s.qd.max()))  # type: ignore[operator]
             for k, s in enumerate(states)
         ],
         dtype=bool,
     )
+    if unique is not None:
+        flat = [not unique(s.ypm, s.ypm * (s.grad + 1.0), s.c, -s.rho) for s in states]  # type: ignore[operator]
+        out |= np.array(flat, dtype=bool)
+    return out
 
 
 def refit_pairs(

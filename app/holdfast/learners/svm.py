@@ -35,7 +35,14 @@ from holdfast.learners.base import FittedModel, signed_margins
 from holdfast.learners.face import FaceInverse
 from holdfast.learners.kernels import kernel_matrix, resolve_gamma, row_margin, submatrix
 from holdfast.learners.pairs import PairModel, fit_pairs, pair_decision, vote_codes
-from holdfast.learners.svm_refit import WARM_TOL, DualModel, SVMRefitProblem, intercept_movers, tie_tolerance
+from holdfast.learners.svm_refit import (
+    WARM_TOL,
+    DualModel,
+    SVMRefitProblem,
+    intercept_is_unique,
+    intercept_movers,
+    tie_tolerance,
+)
 
 __all__ = [
     "SVMLearner",
@@ -271,10 +278,11 @@ class SVMLearner:
             own = self._fit_own_pairs(kernel, y, row_c, n_classes, problem)
         self.svc_on_X_ = False
         checked = self.ties_ == "libsvm" and own is not None and kernel is not None
-        if checked and self._has_tie(own, kernel, problem):  # type: ignore[arg-type]
-            # a training decision value within the tie tolerance of 0: the full model is the reference's
-            # own computation (libsvm computing the kernel from X), so that its sign is the reference's;
-            # refits still start warm from our solution (an optimum of the same problem)
+        if checked and self._reference_decides(own, kernel, problem):  # type: ignore[arg-type]
+            # a training decision value within the tie tolerance of 0, or an intercept that is not unique
+            # (libsvm's choice in the interval depends on its final state): the full model is the
+            # reference's own computation (libsvm computing the kernel from X), so that its signs are the
+            # reference's; refits still start warm from our solution (an optimum of the same problem)
             if seed_svc is not None:  # already fitted on X above the limit
                 clf = seed_svc
             else:
@@ -489,15 +497,28 @@ class SVMLearner:
     def _args(self) -> tuple[str, float, int, float]:
         return (self.kernel, self.gamma_, self.degree, self.coef0)
 
-    def _has_tie(self, own: DualModel | PairModel, kernel: smo.Kernel, problem: SVMRefitProblem) -> bool:
-        """True when a training decision value of our own fit is within ``tie_tolerance`` of 0."""
+    def _reference_decides(
+        self, own: DualModel | PairModel, kernel: smo.Kernel, problem: SVMRefitProblem
+    ) -> bool:
+        """True when a training decision value of our own fit is within ``tie_tolerance`` of 0, or the
+        intercept (of a one-vs-one machine) is not unique (``svm_refit.intercept_is_unique``)."""
         k_max = float(np.max(kernel.diag(np.arange(len(problem.y)))))
+        eps = 100.0 * self.tol  # the kink tolerance of the refits' check (SVMRefitProblem._unique)
         if isinstance(own, DualModel):
-            assert problem.alpha is not None and problem.grad is not None
+            assert problem.alpha is not None and problem.grad is not None and problem.c_row is not None
             ypm = np.where(problem.in_solver_order(problem.y) == 1, 1.0, -1.0)  # as grad
-            dec = ypm * (problem.grad + 1.0) + own.intercept_[0]
-            return bool(np.min(np.abs(dec)) < tie_tolerance(self.tol, float(problem.alpha.sum()), k_max))
+            g = ypm * (problem.grad + 1.0)
+            intercept = float(own.intercept_[0])
+            if not intercept_is_unique(ypm, g, problem.c_row, intercept, eps):
+                return True
+            return bool(
+                np.min(np.abs(g + intercept)) < tie_tolerance(self.tol, float(problem.alpha.sum()), k_max)
+            )
         assert problem.pairs is not None and problem.ovo_full is not None
+        if not all(
+            intercept_is_unique(s.ypm, s.ypm * (s.grad + 1.0), s.c, -s.rho, eps) for s in problem.pairs
+        ):
+            return True
         sums = np.array([s.alpha.sum() for s in problem.pairs])
         limits = np.array([tie_tolerance(self.tol, float(a), k_max) for a in sums])
         return bool(np.any(np.min(np.abs(problem.ovo_full), axis=0) < limits))

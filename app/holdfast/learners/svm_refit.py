@@ -432,7 +432,7 @@ class SVMRefitProblem:
         assert self.solver is not None and self.pairs is not None and self.ovo_full is not None
         if self.ties == "libsvm":
             if self.ovo_tied is None:
-                self.ovo_tied = tied_machines(self.pairs, self.ovo_full, self._tie)
+                self.ovo_tied = tied_machines(self.pairs, self.ovo_full, self._tie, self._unique)
             ovo = refit_pairs(
                 self.solver, self.pairs, self.ovo_full, row, self.eps, self._unique, self._tie, self.ovo_tied
             )
