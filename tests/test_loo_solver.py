@@ -122,10 +122,9 @@ def small_three_class_problems(draw):
     if draw(st.booleans()):  # a class far along the line
         y[X[:, 0] > 1.0] = 2
         X[y == 2, 0] += draw(st.sampled_from([1.0, 3.0, 6.0]))
-    for c in (0, 1, 2):  # every LOO fold of the reference needs every class
-        short = 2 - int((y == c).sum())
-        if short > 0:
-            y[np.flatnonzero(np.bincount(y, minlength=3)[y] > 2)[:short]] = c
+    for c in (0, 1, 2):  # every LOO fold of the reference needs every class: take rows of the largest
+        while int((y == c).sum()) < 2:
+            y[np.flatnonzero(y == np.argmax(np.bincount(y, minlength=3)))[0]] = c
     kernel = draw(st.sampled_from(["linear", "rbf", "poly"]))
     C = draw(st.sampled_from([0.01, 0.1, 1.0, 10.0, 100.0]))
     weight = draw(st.sampled_from(["none", "balanced"]))
