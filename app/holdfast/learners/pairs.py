@@ -176,11 +176,10 @@ def refitted_decision(
     values plus the change, sum over the rows whose alpha changed of their y delta-alpha K(x_t, x), and the
     change of the intercept (O(changed rows x m) instead of O(support rows x m); the same values up to
     rounding)."""
+    assert s.outside is not None  # set by fit_pairs
     out = np.empty(len(full))
     out[s.idx] = s.ypm * (grad + 1.0) - rho
     outside = s.outside
-    if outside is None:
-        outside = np.setdiff1d(np.arange(len(full)), s.idx, assume_unique=True)
     if len(outside):
         moved = np.flatnonzero(alpha != s.alpha)
         step = (alpha[moved] - s.alpha[moved]) * s.ypm[moved]
