@@ -102,6 +102,7 @@ def _pool(problem: RefitProblem, n_jobs: int) -> Iterator[ProcessPoolExecutor]:
     finally:
         if not ended:  # cancelled or failed: end the workers now, mid-refit if need be
             procs = list((getattr(pool, "_processes", None) or {}).values())
+            manager = getattr(pool, "_executor_manager_thread", None)
             pool.shutdown(wait=False, cancel_futures=True)
             for proc in procs:
                 with contextlib.suppress(Exception):
@@ -109,6 +110,12 @@ def _pool(problem: RefitProblem, n_jobs: int) -> Iterator[ProcessPoolExecutor]:
             for proc in procs:
                 with contextlib.suppress(Exception):
                     proc.join(timeout=5)
+            # The pool's own thread also reaps the workers; until it has recorded their exit, a worker it
+            # reaped first still counts as alive here (multiprocessing.active_children). It ends once it
+            # sees them gone.
+            if manager is not None:
+                with contextlib.suppress(Exception):
+                    manager.join(timeout=5)
 
 
 def refit_on_workers(
