@@ -19,6 +19,7 @@ from markdown_it import MarkdownIt
 from matplotlib.image import imread
 from sklearn.datasets import load_breast_cancer
 
+import holdfast
 from holdfast.data.spec import spec_from_text
 from holdfast.engine.scan import run_scan
 from holdfast.errors import UserError
@@ -118,6 +119,7 @@ def test_report_sections_tables_and_literal_text(scan, tmp_path):
     ):
         assert f"<h2>{html.escape(heading)}</h2>" in rendered, heading
     assert "What-if" not in text  # not asked
+    assert f"by holdfast {holdfast.__version__}." in text  # our own text, written as it is (no escapes)
 
 
 def test_report_bounds_top_rows_and_decisions_match_the_scan(scan, tmp_path):

@@ -413,7 +413,7 @@ def write_report(
     lines = [
         f"# holdfast report: {md_escape(name)}",
         "",
-        f"Written {datetime.now(UTC).strftime('%Y-%m-%d %H:%M UTC')} by holdfast {md_escape(__version__)}.",
+        f"Written {datetime.now(UTC).strftime('%Y-%m-%d %H:%M UTC')} by holdfast {__version__}.",
         "",
         *_summary(scan),
         *_bounds(scan),
