@@ -32,6 +32,13 @@ def _env(cache: Path) -> dict[str, str]:
     return env
 
 
+def _sigint_as_usual() -> None:
+    """In the scan's process before it starts: Ctrl+C back to its default. A shell starts background jobs
+    with SIGINT ignored, Python then keeps it ignored, and a test run started that way (``pytest &``)
+    would see a scan that never stops."""
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
+
+
 def test_sigint_during_long_fits_exits_promptly_with_one_line(tmp_path: Path) -> None:
     rng = np.random.default_rng(0)
     n = 3000
@@ -47,6 +54,7 @@ def test_sigint_during_long_fits_exits_promptly_with_one_line(tmp_path: Path) ->
         stdout=subprocess.PIPE,
         stderr=subprocess.PIPE,
         env=_env(tmp_path / "cache"),
+        preexec_fn=_sigint_as_usual,
     )
     assert proc.stderr is not None
     try:
@@ -116,6 +124,7 @@ def _scan_on_workers(tmp_path: Path) -> tuple[subprocess.Popen[str], Path]:
         stdout=subprocess.DEVNULL,
         stderr=subprocess.PIPE,
         env=_env(tmp_path / "cache"),
+        preexec_fn=_sigint_as_usual,
         text=True,
     )
     assert proc.stderr is not None
