@@ -13,7 +13,8 @@ RSS, or the sampled PSS of it and its forked refit workers when larger, see ``_P
    fit, LOO, findings and outputs; cache off), and its ratio to the naive LOO printed below the table.
 2. The scaling table (``--sizes``): for each m, the same data kind plus an imbalanced set
    (``weights=[0.97]``) and an overlapping set (``class_sep=0.5``) at ``--side-size`` rows. Printed: the
-   support rows d, the fit, the LOO, ms per refit, how many refits fell back to a cold libsvm solve,
+   support rows d, the fit, the LOO, ms per refit, how many refits fell back to a cold libsvm solve
+   (three classes: "+ N machines", one-vs-one machines at a tie solved by libsvm alone),
    the time of one full SVC fit on the same data (ratio = fit+LOO over it) and naive LOO *estimated*
    from ``--naive-sample`` timed SVC refits (times m; marked ``est``), and the peak memory.
    ``--linear-sizes`` adds linear-kernel cases (20 features, 10 informative; ``--linear-naive-sample``
@@ -214,6 +215,15 @@ def run_case(
         return original(self, row)
 
     refit_mod.SVMRefitProblem._fit_without = counted  # type: ignore[method-assign]
+    machines = multiprocessing.Value("i", 0)  # one-vs-one machines solved by libsvm alone (at a tie)
+    pair_original = refit_mod.libsvm_pair_decision
+
+    def counted_pair(*args: Any, **kwargs: Any) -> Any:
+        with machines.get_lock():
+            machines.value += 1
+        return pair_original(*args, **kwargs)
+
+    refit_mod.libsvm_pair_decision = counted_pair  # type: ignore[assignment]
     with _PeakMemory() as memory:  # the refit workers' memory counts too
         t0 = time.perf_counter()
         learner = SVMLearner(kernel=_kernel(kind), C=1.0, gamma="scale")
@@ -231,6 +241,7 @@ def run_case(
         "loo": t_loo,
         "ms_refit": 1000 * t_loo / max(d, 1),
         "cold": cold.value,
+        "machines": machines.value,
         "precomputed": learner.refit_problem().K is not None,
     }
     if _kernel(kind) == "linear" and m > svc_max_rows:  # no libsvm fit: our own cold solves are the check
@@ -303,6 +314,7 @@ def _row(r: dict[str, Any]) -> str:
     est = " est" if r["naive_estimated"] else ""
     checked = r.get("naive_checked", r["m"])
     flips = f"{r['flip_mismatches']}/{r['flip_checked']}" if "flip_checked" in r else "-"
+    cold_machines = f" + {r['machines']} machines" if r.get("machines") else ""
     if r.get("own_check"):  # no libsvm figures: see _own_cold_check
         svc = ratio = naive = x_naive = "n/a"
         flips = f"{r['mismatches']}/{checked} own"
@@ -311,7 +323,8 @@ def _row(r: dict[str, Any]) -> str:
         naive, x_naive = f"{r['naive']:.1f}{est}", f"{r['naive'] / total:.1f}"
     return (
         f"| {r['kind']} | {r['m']:,} | {r['d']:,} | {r['fit']:.2f} | {r['loo']:.2f} | {r['ms_refit']:.2f} | "
-        f"{r['cold']} | {svc} | {ratio} | {naive} | {x_naive} | {r['mismatches']}/{checked} | {flips} | "
+        f"{r['cold']}{cold_machines} | {svc} | {ratio} | {naive} | {x_naive} | {r['mismatches']}/{checked} | "
+        f"{flips} | "
         f"{r['peak_mb']:.0f} |"
     )
 

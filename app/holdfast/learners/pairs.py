@@ -215,25 +215,28 @@ def refit_pairs(
     unique: object,
     tie: object,
     tied: np.ndarray | None = None,
-) -> np.ndarray | None:
-    """The ovo decision values of every training row after a refit without ``row``: the machines where
-    ``row`` has a non-zero weight, or whose intercept it can move (``PairState.movers``), are warm-started
-    without it (Newton steps from ``PairState.face``; decision values by :func:`refitted_decision`), the
-    others are reused. Returns None when a
-    refit's intercept is not unique (``unique(ypm, g, c, intercept)`` is False) or a refitted machine's
-    decision value is within ``tie(sum alpha, max K)`` of 0; the caller then solves the whole problem with
-    libsvm. A machine without ``row`` is reused as it is, but also when it is ``tied``
-    (:func:`tied_machines`) the refit goes to libsvm: whether libsvm's solve of the same machine in the
-    smaller problem rounds a value at a tie to the same sign is not known (an exact tie such as w = 0,
-    b = 0 on a 1-D grid: libsvm's vote at 0 goes to the second class)."""
+) -> tuple[np.ndarray, list[int]]:
+    """The ovo decision values of every training row after a refit without ``row``, and the machines whose
+    values must come from libsvm instead.
+
+    The machines where ``row`` has a non-zero weight, or whose intercept it can move
+    (``PairState.movers``), are warm-started without it (Newton steps from ``PairState.face``; decision
+    values by :func:`refitted_decision`); the others are reused. A machine goes to libsvm when its refit's
+    intercept is not unique (``unique(ypm, g, c, intercept)`` is False) or one of its decision values is
+    within ``tie(sum alpha, max K)`` of 0, and when it is ``tied`` (:func:`tied_machines`), refitted or
+    not: whether libsvm's solve of the same machine rounds a value at a tie to the same sign is not known
+    (an exact tie such as w = 0, b = 0 on a 1-D grid: libsvm's vote at 0 goes to the second class). The
+    caller fills those columns (``SVMRefitProblem._libsvm_machine``); the other machines' values are the
+    optimum's, which are libsvm's to within the tie allowance."""
     ovo = ovo_full.copy()
+    ask: list[int] = []
     for k, s in enumerate(states):
         pos = int(np.searchsorted(s.idx, row))
         inside = pos < len(s.idx) and s.idx[pos] == row
         mover = inside and s.movers is not None and pos in s.movers
         if not inside or (s.alpha[pos] <= 0 and not mover):
             if tied is not None and tied[k]:
-                return None
+                ask.append(k)
             continue
         alpha, grad, c = s.alpha.copy(), s.grad.copy(), s.c.copy()
         args = (eps, False, s.qd, s.near, s.face)
@@ -241,8 +244,9 @@ def refit_pairs(
         keep = np.arange(len(s.idx)) != pos
         g = (s.ypm * (grad + 1.0))[keep]
         if not unique(s.ypm[keep], g, c[keep], -rho):  # type: ignore[operator]
-            return None
+            ask.append(k)
+            continue
         ovo[:, k] = refitted_decision(kernel, s, alpha, grad, rho, ovo_full[:, k])
         if np.min(np.abs(ovo[:, k])) < tie(float(alpha.sum()), float(s.qd.max())):  # type: ignore[operator]
-            return None
-    return ovo
+            ask.append(k)
+    return ovo, ask
