@@ -250,6 +250,28 @@ async def test_overview_shows_counts_bounds_sources_and_histogram(scan):
         line_with(lines, "learner", "svm", "C=1")
 
 
+async def test_overview_lists_a_few_features_and_keeps_the_learner_in_view(scan):
+    """64 features (as in the digits data): the compact view names 8 and counts the rest, so the learner's
+    settings stay on screen; the whole-screen view (v) names them all."""
+    summary = dict(scan.findings.summary)
+    names = [f"pixel_{i // 8}_{i % 8}" for i in range(64)]
+    summary["data"] = {**dict(summary.get("data") or {}), "features": names}
+    app = Host()
+    async with app.run_test(size=(150, 30)) as pilot:
+        panel = app.query_one(OverviewPanel)
+        panel.show(summary, None)
+        await pilot.pause()
+        lines = [line[: 150 - PANEL_WIDTH] for line in screen_lines(app)]
+        line_with(lines, "features", "64", "pixel_0_0")
+        line_with(lines, "and 56 more (v: all)")
+        line_with(lines, "learner", "svm", "C=1")
+        assert not any("pixel_7_7" in ln for ln in lines)
+        panel.set_full(True)
+        await pilot.pause()
+        full = re.sub(r"\s+", " ", "\n".join(line[: 150 - PANEL_WIDTH] for line in screen_lines(app)))
+        assert "pixel_7_7" in full and "more (v: all)" not in full
+
+
 def test_histogram_bars_follow_the_counts():
     """Bars worked out by hand: the tallest column is a full block, others ceil(8 * count / max)."""
     hist = Histogram(

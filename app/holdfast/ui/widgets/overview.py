@@ -57,6 +57,11 @@ def _param(value: Any) -> str:
     return safe_text(value)
 
 
+#: Feature names listed in the compact view; the whole-screen view (v) lists them all. With dozens of
+#: features the list would push the learner's settings out of the panel.
+FEATURE_NAMES_SHOWN = 8
+
+
 class Columns:
     """Blocks side by side when there is room for ``block_width`` cells each, else stacked."""
 
@@ -204,7 +209,12 @@ class OverviewPanel(VerticalScroll):
         features = [safe_text(f) for f in data.get("features", []) or []]
         if features:
             line = self._pair("features", f"{len(features):,}")
-            line.append("  " + ", ".join(features), style=self._s("muted"))
+            shown = features if self.full else features[:FEATURE_NAMES_SHOWN]
+            more = len(features) - len(shown)
+            line.append(
+                "  " + ", ".join(shown) + (f" and {more:,} more (v: all)" if more else ""),
+                style=self._s("muted"),
+            )
             out.append(line)
         params = dict(s.get("learner", {}) or {})
         if params:
