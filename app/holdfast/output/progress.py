@@ -3,7 +3,8 @@
 Plain lines (stderr is a file, a pipe or a CI log) come at every 10% and at least every
 ``HEADLESS_EVERY`` seconds, so a long scan never looks stuck. The ETA comes from the refit rate smoothed
 over time (an exponentially weighted average with time constant ``RATE_TAU`` seconds, growing to half the
-time measured: common practice for rate meters), not from the last batch alone, so it settles instead of
+time measured, and the plain average of all that was measured while that is shorter: common practice for
+rate meters), not from the last batch alone, so it settles instead of
 jumping with each batch; it is shown once ``ETA_AFTER`` seconds of refits have been measured, rounded more
 coarsely as it grows.
 """
@@ -70,9 +71,12 @@ class RateMeter:
         else:
             # weight of the new interval: 1 - exp(-dt / tau), so the average spans about tau seconds
             # whatever the spacing of the updates; tau grows to half the time measured, so the estimate
-            # steadies as the run goes on and still follows a change of pace
+            # steadies as the run goes on and still follows a change of pace. Before tau seconds are
+            # measured, at least dt / measured: the plain average over all of it, so a slow start (the
+            # workers' first refits) weighs no more than its share of the time
             tau = max(self.tau, 0.5 * self.measured)
-            self.rate += (1.0 - math.exp(-dt / tau)) * (inst - self.rate)
+            weight = max(1.0 - math.exp(-dt / tau), dt / self.measured)
+            self.rate += weight * (inst - self.rate)
 
     def eta(self, left: int) -> float | None:
         """Seconds until ``left`` more refits are done; None while too little was measured."""
